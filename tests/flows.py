@@ -1,0 +1,140 @@
+"""Analytic flows, small meshes and series writers shared by the tests.
+
+Each flow cites where its closed form comes from; the meshes are plain boxes cut into cells of one
+type, so that the tests control the cell size ``h`` their tolerances are stated against.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Callable, Sequence
+
+import numpy as np
+import pyvista as pv
+from vtkmodules.util.numpy_support import numpy_to_vtk
+from vtkmodules.vtkCommonCore import vtkDoubleArray
+from vtkmodules.vtkIOXML import vtkXMLUnstructuredGridWriter
+
+Flow = Callable[[np.ndarray, float], np.ndarray]
+
+
+def box_mesh(low: Sequence[float], high: Sequence[float], cells: Sequence[int], kind: str = "tetra") -> pv.UnstructuredGrid:
+    """A box cut into ``cells`` hexahedra per direction, optionally split into tetrahedra.
+
+    kind : 'hexahedron' or 'tetra' (VTK's 5/6-tet split, conforming)
+    """
+    low, high = np.asarray(low, float), np.asarray(high, float)
+    n = np.asarray(cells)
+    grid = pv.ImageData(dimensions=tuple(n + 1), spacing=tuple((high - low) / n), origin=tuple(low))
+    if kind == "tetra":
+        return grid.triangulate().cast_to_unstructured_grid()
+    return grid.cast_to_unstructured_grid()
+
+
+def write_series(
+    mesh: pv.UnstructuredGrid,
+    flow: Flow,
+    times: Sequence[float],
+    folder: Path,
+    association: str = "point",
+    name: str = "U",
+    stem: str = "snap",
+    time_field: str | None = "time",
+) -> list[Path]:
+    """Sample ``flow(points, t)`` on ``mesh`` at each time and write one .vtu per time."""
+    folder.mkdir(parents=True, exist_ok=True)
+    where = mesh.points if association == "point" else mesh.cell_centers().points
+    paths = []
+    for k, t in enumerate(times):
+        m = mesh.copy(deep=False)
+        m.clear_data()
+        u = np.asarray(flow(np.asarray(where, float), float(t)), dtype=np.float64)
+        (m.point_data if association == "point" else m.cell_data)[name] = u
+        if time_field:
+            arr = vtkDoubleArray()
+            arr.SetName(time_field)
+            arr.InsertNextValue(float(t))
+            m.GetFieldData().AddArray(arr)
+        p = folder / f"{stem}_{k:04d}.vtu"
+        w = vtkXMLUnstructuredGridWriter()
+        w.SetFileName(str(p))
+        w.SetInputData(m)
+        w.Write()
+        paths.append(p)
+    return paths
+
+
+# ----------------------------------------------------------------------------------------------- flows
+def oscillating(U: float, V: float, omega: float) -> Flow:
+    """Uniform flow with an oscillating cross component, ``u = (U, V sin(omega t), 0)``.
+
+    Closed forms (direct integration, e.g. any fluid-mechanics text's kinematics chapter; common practice):
+    a particle released at ``(x0, y0)`` at ``tau`` is at ``x0 + U (t - tau)``,
+    ``y0 + V/omega (cos(omega tau) - cos(omega t))``; the streamline at ``t`` is straight along
+    ``(U, V sin(omega t), 0)``.
+    """
+
+    def u(x: np.ndarray, t: float) -> np.ndarray:
+        out = np.zeros_like(x)
+        out[:, 0] = U
+        out[:, 1] = V * np.sin(omega * t)
+        return out
+
+    return u
+
+
+def oscillating_position(p0: np.ndarray, tau: np.ndarray, t: float, U: float, V: float, omega: float) -> np.ndarray:
+    """Where a particle released at ``p0`` at time ``tau`` is at time ``t`` in :func:`oscillating`."""
+    p0 = np.atleast_2d(p0).astype(float)
+    tau = np.asarray(tau, dtype=float)
+    out = np.array(np.broadcast_to(p0, np.broadcast_shapes(p0.shape, tau.shape + (3,))), dtype=float)
+    out[..., 0] += U * (t - tau)
+    out[..., 1] += V / omega * (np.cos(omega * tau) - np.cos(omega * t))
+    return out
+
+
+def abc(A: float = np.sqrt(3.0), B: float = np.sqrt(2.0), C: float = 1.0) -> Flow:
+    """Arnold–Beltrami–Childress flow (Dombre, Frisch, Greene, Hénon, Mehr & Soward 1986, J. Fluid Mech. 167):
+    ``u = (A sin z + C cos y, B sin x + A cos z, C sin y + B cos x)``."""
+
+    def u(x: np.ndarray, t: float) -> np.ndarray:
+        X, Y, Z = x[:, 0], x[:, 1], x[:, 2]
+        return np.stack([A * np.sin(Z) + C * np.cos(Y), B * np.sin(X) + A * np.cos(Z), C * np.sin(Y) + B * np.cos(X)], axis=1)
+
+    return u
+
+
+def lamb_oseen(gamma: float, rc: float, center: Sequence[float] = (0.0, 0.0)) -> Flow:
+    """Lamb–Oseen vortex about the z axis (Lamb 1932, *Hydrodynamics*, 6th ed., §334a; Oseen 1912):
+    ``u_theta = gamma / (2 pi r) (1 - exp(-r^2 / rc^2))``, steady with a fixed core radius ``rc``."""
+    cx, cy = center
+
+    def u(x: np.ndarray, t: float) -> np.ndarray:
+        dx, dy = x[:, 0] - cx, x[:, 1] - cy
+        r2 = dx * dx + dy * dy
+        with np.errstate(invalid="ignore", divide="ignore"):
+            f = np.where(r2 > 0, gamma / (2 * np.pi * r2) * (1 - np.exp(-r2 / rc**2)), gamma / (2 * np.pi * rc**2))
+        return np.stack([-f * dy, f * dx, np.zeros_like(dx)], axis=1)
+
+    return u
+
+
+def lamb_oseen_omega(gamma: float, rc: float, r: np.ndarray) -> np.ndarray:
+    """Angular velocity ``u_theta / r`` of :func:`lamb_oseen` at radius ``r``."""
+    r = np.asarray(r, float)
+    return gamma / (2 * np.pi * r**2) * (1 - np.exp(-(r**2) / rc**2))
+
+
+def helix(omega: float, w: float) -> Flow:
+    """Solid-body rotation about z with axial flow, ``u = (-omega y, omega x, w)``: linear in space, so
+    every cell type interpolates it exactly; particle paths are helices (common practice)."""
+
+    def u(x: np.ndarray, t: float) -> np.ndarray:
+        return np.stack([-omega * x[:, 1], omega * x[:, 0], np.full(len(x), w)], axis=1)
+
+    return u
+
+
+def write_recipe(path: Path, text: str) -> Path:
+    path.write_text(text)
+    return path

@@ -1,0 +1,260 @@
+"""The four flow-line kinds: pathline, streakline, timeline, streamline.
+
+A tracer follows one recipe entry through the snapshot intervals and hands a PolyData to ``emit`` at each
+of its output frames. Particle kinds share :class:`ParticleTracer`; they differ only in how the particles
+are joined into polylines at a frame (the ``assemble_*`` functions). :data:`LINE_KINDS` is the one table
+of kinds; the recipe's choices and error messages read from it.
+
+Point arrays written: ``velocity``, ``speed``; particle lines add ``particle_id``
+(= release_instant_index * n_release_points + release_point_index), ``release_time``, ``age``,
+``status`` (:class:`~vtkflow.particles.Status` value) and ``time``; streamlines add ``release_point`` and
+``arc_length``. FieldData: ``time``.
+
+Adding a kind: write a tracer (or an ``assemble_*`` function for a particle kind) and add one row to
+:data:`LINE_KINDS`.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Callable, NamedTuple, Optional
+
+import numpy as np
+
+from .particles import State, Status, TimeField, advance, place, trace_streamlines
+
+__all__ = ["LINE_KINDS", "LineKind", "ParticleTracer", "StreamlineTracer", "release_instants", "STATUS_NAMES"]
+
+Emit = Callable[[int, float, Any], None]
+
+#: FieldData ``status_names``: the name of each status value, in value order.
+STATUS_NAMES = [s.name for s in Status]
+
+#: Two times closer than this (relative to the snapshot spacing) are the same instant (common practice:
+#: absorbs the round-off of ``start + k * every``).
+TIME_RTOL = 1e-9
+
+
+def release_instants(start: float, stop: float, every: Optional[float]) -> np.ndarray:
+    """Release instants ``start + k * every`` for k = 0, 1, ... while <= stop (one at ``start`` without ``every``)."""
+    if every is None:
+        return np.array([start])
+    n = int(np.floor((stop - start) / every * (1.0 + TIME_RTOL) + TIME_RTOL)) + 1
+    return start + every * np.arange(n)
+
+
+class _History:
+    """Vertices recorded along particle paths, consolidated into flat arrays on demand."""
+
+    def __init__(self) -> None:
+        self._chunks: list[tuple[np.ndarray, ...]] = []
+        self.ids = np.zeros(0, np.int64)
+        self.x = np.zeros((0, 3))
+        self.t = np.zeros(0)
+        self.v = np.zeros((0, 3))
+
+    def __call__(self, idx: np.ndarray, x: np.ndarray, t: np.ndarray, v: np.ndarray) -> None:
+        self._chunks.append((idx.astype(np.int64), x.copy(), t.copy(), v.copy()))
+
+    def consolidate(self) -> None:
+        if self._chunks:
+            parts = [(self.ids, self.x, self.t, self.v), *self._chunks]
+            self.ids, self.x, self.t, self.v = (np.concatenate(c) for c in zip(*parts))
+            self._chunks.clear()
+
+
+class ParticleTracer:
+    """Particles released from fixed points at a series of instants, advanced in the time-varying field.
+
+    Parameters
+    ----------
+    name : str
+    kind : {'pathline', 'streakline', 'timeline'}
+    points : (P, 3) ndarray
+        Release points.
+    inside : (P,) ndarray of bool
+        Which release points lie in the mesh (the others are dropped).
+    instants : (R,) ndarray
+        Release instants.
+    frames : (F,) ndarray
+        Output frame times, ascending, inside the window.
+    window : (start, stop)
+    step : float
+        RK4 step as a fraction of the local cell size.
+    """
+
+    particles = True
+
+    def __init__(
+        self,
+        name: str,
+        kind: str,
+        points: np.ndarray,
+        inside: np.ndarray,
+        instants: np.ndarray,
+        frames: np.ndarray,
+        window: tuple[float, float],
+        step: float,
+    ) -> None:
+        self.name, self.kind, self.step = name, kind, step
+        self.frames, self.window = np.asarray(frames, dtype=float), window
+        self.n_points = len(points)
+        self.release_points = np.asarray(points, dtype=float)
+        n = len(instants) * self.n_points
+        self.release_time = np.repeat(np.asarray(instants, dtype=float), self.n_points)
+        self.point_index = np.tile(np.arange(self.n_points), len(instants))
+        self.state = State.empty(n)
+        self.state.status[~np.tile(np.asarray(inside, bool), len(instants))] = int(Status.dropped)
+        self.history = _History() if kind == "pathline" else None
+        self.next_frame = 0
+
+    def interval(self, field: TimeField, t0: float, t1: float, first: bool, emit: Emit) -> None:
+        """Advance through ``(t0, t1]`` (``[t0, t1]`` if ``first``), emitting the frames that fall in it."""
+        start, stop = self.window
+        hi = min(t1, stop)
+        if hi < start or (t0 >= stop and not first):
+            return
+        while self.next_frame < len(self.frames) and self.frames[self.next_frame] <= hi:
+            te = float(self.frames[self.next_frame])
+            self._go(te, field)
+            emit(self.next_frame, te, self.assemble(te))
+            self.next_frame += 1
+        self._go(hi, field)
+
+    def _go(self, te: float, field: TimeField) -> None:
+        s = self.state
+        new = np.flatnonzero((s.status == Status.pending) & (self.release_time <= te))
+        if new.size:
+            place(s, new, self.release_points[self.point_index[new]], self.release_time[new], field)
+            if self.history is not None:
+                self.history(new, s.x[new], s.t[new], s.v[new])
+        advance(s, te, field, self.step, self.history)
+
+    # ----------------------------------------------------------------------------------- assembling
+    def assemble(self, time: float) -> Any:
+        if self.kind == "pathline":
+            return self._pathlines(time)
+        s = self.state
+        alive = np.isin(s.status, (Status.active, Status.nan, Status.stalled)) & (self.release_time <= time)
+        ids = np.flatnonzero(alive)
+        instant = ids // self.n_points
+        point = self.point_index[ids]
+        # streakline: per release point, oldest first; timeline: per release instant, in release-point order
+        group, order_key = (point, instant) if self.kind == "streakline" else (instant, point)
+        order = np.lexsort((order_key, group))
+        ids, group = ids[order], group[order]
+        _, lengths = np.unique(group, return_counts=True)
+        return self._polydata(ids, s.x[ids], s.t[ids], s.v[ids], lengths, time)
+
+    def _pathlines(self, time: float) -> Any:
+        h = self.history
+        assert h is not None
+        h.consolidate()
+        order = np.argsort(h.ids, kind="stable")  # vertices were recorded in time order per particle
+        ids = h.ids[order]
+        _, lengths = np.unique(ids, return_counts=True)
+        return self._polydata(ids, h.x[order], h.t[order], h.v[order], lengths, time)
+
+    def _polydata(self, ids: np.ndarray, x: np.ndarray, t: np.ndarray, v: np.ndarray, lengths: np.ndarray, time: float) -> Any:
+        from .output import polylines
+
+        rt = self.release_time[ids]
+        arrays = {
+            "velocity": v,
+            "speed": np.linalg.norm(v, axis=1),
+            "particle_id": ids.astype(np.int64),
+            "release_time": rt,
+            "age": t - rt,
+            "status": self.state.status[ids].astype(np.int8),
+            "time": t,
+        }
+        return polylines(x, lengths, arrays, time, {"status_names": _status_names()})
+
+    def counts(self) -> dict[str, int]:
+        st = self.state.status
+        return {
+            "released": int(np.count_nonzero((st != Status.pending) & (st != Status.dropped))),
+            "exited": int(np.count_nonzero(st == Status.exited)),
+            "stopped": int(np.count_nonzero((st == Status.nan) | (st == Status.stalled))),
+            "stopped_nan": int(np.count_nonzero(st == Status.nan)),
+            "dropped_at_release": int(np.count_nonzero(st == Status.dropped)),
+        }
+
+
+class StreamlineTracer:
+    """Streamlines of the frozen field at each output frame, from the release points inside the mesh."""
+
+    particles = False
+
+    def __init__(
+        self,
+        name: str,
+        points: np.ndarray,
+        inside: np.ndarray,
+        frames: np.ndarray,
+        direction: str,
+        step: float,
+        length: float,
+    ) -> None:
+        self.name, self.kind = name, "streamline"
+        self.seed_ids = np.flatnonzero(inside)
+        self.seeds = np.asarray(points, dtype=float)[self.seed_ids]
+        self.n_dropped = int(len(points) - len(self.seed_ids))
+        self.frames = np.asarray(frames, dtype=float)
+        self.direction, self.step, self.length = direction, step, length
+        self.next_frame = 0
+        self._ends: list[np.ndarray] = []
+
+    def interval(self, field: TimeField, t0: float, t1: float, first: bool, emit: Emit) -> None:
+        while self.next_frame < len(self.frames) and self.frames[self.next_frame] <= t1:
+            te = float(self.frames[self.next_frame])
+            emit(self.next_frame, te, self.assemble(field, te))
+            self.next_frame += 1
+
+    def assemble(self, field: TimeField, time: float) -> Any:
+        from .output import polylines
+
+        lines = trace_streamlines(field, time, self.seeds, self.seed_ids, self.direction, self.step, self.length)
+        self._ends.append(lines.ends)
+        arrays = {
+            "velocity": lines.velocity,
+            "speed": np.linalg.norm(lines.velocity, axis=1),
+            "release_point": lines.seed.astype(np.int64),
+            "arc_length": lines.arc_length,
+            "status": lines.status.astype(np.int8),
+        }
+        return polylines(lines.points, lines.lengths, arrays, time, {"status_names": _status_names()})
+
+    def counts(self) -> dict[str, int]:
+        ends = np.concatenate([e.ravel() for e in self._ends]) if self._ends else np.zeros(0, np.int8)
+        return {
+            "released": int(len(self.seeds) * len(self._ends)),
+            "exited": int(np.count_nonzero(ends == Status.exited)),
+            "stopped": int(np.count_nonzero((ends == Status.nan) | (ends == Status.stalled))),
+            "stopped_nan": int(np.count_nonzero(ends == Status.nan)),
+            "dropped_at_release": self.n_dropped * len(self._ends),
+        }
+
+
+def _status_names() -> Any:
+    from ._vtk import vtkStringArray
+
+    arr = vtkStringArray()
+    for n in STATUS_NAMES:
+        arr.InsertNextValue(n)
+    return arr
+
+
+class LineKind(NamedTuple):
+    """A row of :data:`LINE_KINDS`."""
+
+    particles: bool  #: advected particles (True) or streamlines of the frozen field (False)
+    needs_every: bool  #: the recipe must give ``every``
+    description: str
+
+
+LINE_KINDS: dict[str, LineKind] = {
+    "pathline": LineKind(True, False, "path of each released particle up to the frame time"),
+    "streakline": LineKind(True, True, "particles released from each point, joined oldest first"),
+    "timeline": LineKind(True, True, "particles released at one instant, joined in release-point order"),
+    "streamline": LineKind(False, False, "curve tangent to the velocity frozen at the frame time"),
+}

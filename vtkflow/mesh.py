@@ -1,0 +1,212 @@
+"""Mesh topology prepared once per static mesh: point location, interpolation, cell sizes, cell-to-point.
+
+:class:`Mesh` wraps a ``vtkUnstructuredGrid`` that holds topology only. It builds, once:
+
+* a static cell locator, used by a reusable probe that interpolates point arrays at arbitrary points with
+  each cell's own interpolation functions (linear on tetrahedra, trilinear on hexahedra, ...);
+* the local cell size at each point (the smallest ``|volume|**(1/3)`` of the cells that use the point), which
+  bounds integration steps;
+* a sparse cell-to-point averaging matrix (each point gets the plain mean of the cells that use it, as VTK's
+  ``vtkCellDataToPointData`` does by default).
+
+Nothing here knows about recipes.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import scipy.sparse as sp
+
+from . import _vtk
+from ._vtk import numpy_to_vtk, vtk_to_numpy
+
+__all__ = ["Mesh", "CELL_TYPE_NAMES"]
+
+#: Names of the VTK cell types vtkflow reports.
+CELL_TYPE_NAMES = {
+    1: "vertex",
+    3: "line",
+    5: "triangle",
+    9: "quad",
+    10: "tetra",
+    12: "hexahedron",
+    13: "wedge",
+    14: "pyramid",
+    42: "polyhedron",
+}
+
+#: Relative tolerance of point location, in units of the local cell size (common practice: small
+#: against the cell, large against round-off).
+LOCATE_TOLERANCE = 1e-9
+
+
+class Mesh:
+    """Topology of a static unstructured mesh with its search and interpolation structures.
+
+    Parameters
+    ----------
+    grid : vtkUnstructuredGrid
+        The mesh; its arrays are ignored (a shallow copy of the geometry is kept).
+    """
+
+    def __init__(self, grid: Any) -> None:
+        topo = _vtk.vtkUnstructuredGrid()
+        topo.CopyStructure(grid)
+        self.grid = topo
+        self.n_points = int(topo.GetNumberOfPoints())
+        self.n_cells = int(topo.GetNumberOfCells())
+        if self.n_points == 0 or self.n_cells == 0:
+            raise ValueError("the mesh has no points or no cells")
+        self.points = vtk_to_numpy(topo.GetPoints().GetData()).astype(np.float64, copy=False)
+        self.bounds = np.array(topo.GetBounds(), dtype=np.float64).reshape(3, 2)
+        cells = topo.GetCells()
+        self.offsets = vtk_to_numpy(cells.GetOffsetsArray()).astype(np.int64)
+        self.connectivity = vtk_to_numpy(cells.GetConnectivityArray()).astype(np.int64)
+        self.cell_types = vtk_to_numpy(topo.GetCellTypesArray()).astype(np.uint8)
+        self._cell_of_entry = np.repeat(np.arange(self.n_cells), np.diff(self.offsets))
+        self.cell_size = self._cell_sizes()
+        self.point_size = np.full(self.n_points, np.inf)
+        np.minimum.at(self.point_size, self.connectivity, self.cell_size[self._cell_of_entry])
+        self._to_point: sp.csr_matrix | None = None
+        self._probe = _Probe(topo)
+
+    # ------------------------------------------------------------------------------------- summaries
+    @property
+    def diagonal(self) -> float:
+        """Length of the bounding box diagonal."""
+        return float(np.linalg.norm(self.bounds[:, 1] - self.bounds[:, 0]))
+
+    def cell_type_counts(self) -> dict[str, int]:
+        """Number of cells of each type, by name (``tetra``, ``wedge``, ...)."""
+        kinds, counts = np.unique(self.cell_types, return_counts=True)
+        return {CELL_TYPE_NAMES.get(int(k), f"type {int(k)}"): int(c) for k, c in zip(kinds, counts)}
+
+    def same_topology(self, grid: Any) -> bool:
+        """Cheap check that ``grid`` has this mesh's topology: counts, cell types, connectivity and points."""
+        if grid.GetNumberOfPoints() != self.n_points or grid.GetNumberOfCells() != self.n_cells:
+            return False
+        cells = grid.GetCells()
+        conn = vtk_to_numpy(cells.GetConnectivityArray())
+        if conn.shape != self.connectivity.shape or not np.array_equal(conn, self.connectivity):
+            return False
+        if not np.array_equal(vtk_to_numpy(grid.GetCellTypesArray()), self.cell_types):
+            return False
+        pts = vtk_to_numpy(grid.GetPoints().GetData())
+        return bool(np.array_equal(pts, self.points))
+
+    # ---------------------------------------------------------------------------------- conversions
+    def cell_to_point(self, values: np.ndarray) -> np.ndarray:
+        """Average cell values onto points: each point gets the mean over the cells that use it.
+
+        Parameters
+        ----------
+        values : (n_cells,) or (n_cells, k) ndarray
+
+        Returns
+        -------
+        (n_points,) or (n_points, k) ndarray of float64. A NaN in any adjacent cell makes the point NaN.
+        """
+        if self._to_point is None:
+            ones = np.ones(self.connectivity.size)
+            counts = np.bincount(self.connectivity, minlength=self.n_points).astype(np.float64)
+            weights = ones / np.maximum(counts, 1.0)[self.connectivity]
+            self._to_point = sp.csr_matrix(
+                (weights, (self.connectivity, self._cell_of_entry)), shape=(self.n_points, self.n_cells)
+            )
+        return np.asarray(self._to_point @ np.asarray(values, dtype=np.float64))
+
+    # -------------------------------------------------------------------------------------- probing
+    def set_point_data(self, data: np.ndarray) -> None:
+        """Set the point array (``(n_points, k)``) that :meth:`sample` interpolates."""
+        self._probe.set_source(np.ascontiguousarray(data, dtype=np.float64))
+
+    def sample(self, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Interpolate the array set by :meth:`set_point_data` at ``points``.
+
+        Parameters
+        ----------
+        points : (N, 3) ndarray
+
+        Returns
+        -------
+        values : (N, k) ndarray of float64 (zeros where not found)
+        inside : (N,) ndarray of bool, False for points outside the mesh
+        """
+        return self._probe(points)
+
+    def contains(self, points: np.ndarray) -> np.ndarray:
+        """Which of ``points`` (``(N, 3)``) lie in the mesh (within the locator's tolerance)."""
+        if not self._probe.has_source:
+            self.set_point_data(np.zeros((self.n_points, 1)))
+        return self.sample(points)[1]
+
+    def _cell_sizes(self) -> np.ndarray:
+        f = _vtk.vtkCellSizeFilter()
+        f.SetInputData(self.grid)
+        for off in ("ComputeVertexCountOff", "ComputeLengthOff", "ComputeAreaOff", "ComputeSumOff"):
+            getattr(f, off)()
+        f.ComputeVolumeOn()
+        f.Update()
+        vol = np.abs(vtk_to_numpy(f.GetOutput().GetCellData().GetArray("Volume")).astype(np.float64))
+        size = np.cbrt(vol)
+        # Degenerate (zero-volume) cells: fall back to the longest edge of the cell's bounding box.
+        bad = ~(size > 0)
+        if bad.any():
+            pts = self.points[self.connectivity]
+            lo = np.full((self.n_cells, 3), np.inf)
+            hi = np.full((self.n_cells, 3), -np.inf)
+            np.minimum.at(lo, self._cell_of_entry, pts)
+            np.maximum.at(hi, self._cell_of_entry, pts)
+            size[bad] = np.max(hi - lo, axis=1)[bad]
+        return size
+
+
+class _Probe:
+    """A ``vtkProbeFilter`` over a fixed mesh with a prebuilt static cell locator, reused for every call."""
+
+    def __init__(self, grid: Any) -> None:
+        self._source = _vtk.vtkUnstructuredGrid()
+        self._source.ShallowCopy(grid)
+        locator = _vtk.vtkStaticCellLocator()
+        locator.SetDataSet(self._source)
+        locator.BuildLocator()
+        locator.SetUseExistingSearchStructure(True)
+        self._locator = locator
+        self._input = _vtk.vtkPolyData()
+        probe = _vtk.vtkProbeFilter()
+        probe.SetInputData(self._input)
+        probe.SetSourceData(self._source)
+        probe.SetCellLocator(locator)
+        probe.PassPointArraysOff()
+        probe.PassCellArraysOff()
+        probe.PassFieldArraysOff()
+        probe.SetValidPointMaskArrayName("inside")
+        self._probe = probe
+        self._keep: list[Any] = []
+        self.has_source = False
+
+    def set_source(self, data: np.ndarray) -> None:
+        arr = numpy_to_vtk(data.reshape(len(data), -1), deep=True)
+        arr.SetName("values")
+        pd = self._source.GetPointData()
+        pd.Initialize()
+        pd.AddArray(arr)
+        self.has_source = True
+
+    def __call__(self, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        points = np.ascontiguousarray(points, dtype=np.float64).reshape(-1, 3)
+        if len(points) == 0:
+            k = self._source.GetPointData().GetArray("values").GetNumberOfComponents()
+            return np.zeros((0, k)), np.zeros(0, dtype=bool)
+        vpts = _vtk.vtkPoints()
+        vpts.SetData(numpy_to_vtk(points, deep=False))
+        self._keep = [points]
+        self._input.SetPoints(vpts)
+        self._input.Modified()
+        self._probe.Update()
+        out = self._probe.GetOutput().GetPointData()
+        values = vtk_to_numpy(out.GetArray("values")).reshape(len(points), -1).copy()
+        inside = vtk_to_numpy(out.GetArray("inside")).astype(bool)
+        return values, inside

@@ -1,0 +1,380 @@
+"""The recipe: a YAML file validated by pydantic models, the single source of every recipe name.
+
+Loading reads YAML with the safe loader and validates it; every problem becomes one
+:class:`~vtkflow.errors.RecipeError` line naming the file and the key path, and an unknown key names
+the closest valid one. :func:`json_schema` exports the schema for editors.
+
+The names ``vtkflow``, ``data.files``, ``data.times`` (``field``, ``pattern``, ``scale``, ``start``,
+``step``), ``data.velocity``, the release shapes, ``lines.*.kind``/``release``/``start``/``stop``/
+``every``/``direction`` and ``output`` are fixed: other tools rely on them.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Literal, Optional, Union
+
+import yaml
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    PositiveFloat,
+    PositiveInt,
+    ValidationError,
+    create_model,
+    field_validator,
+    model_validator,
+)
+
+from .colormaps import COLORMAPS
+from .errors import RecipeError
+from .lines import LINE_KINDS
+from .releases import SHAPES
+
+__all__ = [
+    "Recipe",
+    "Data",
+    "TimesSpec",
+    "Release",
+    "LineEntry",
+    "RenderEntry",
+    "Camera",
+    "LoadedRecipe",
+    "load_recipe",
+    "parse_recipe",
+    "json_schema",
+]
+
+Vec3 = tuple[float, float, float]
+NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+
+
+class Strict(BaseModel):
+    """Base of every recipe model: frozen, and unknown keys are errors that suggest the closest key."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _known_keys(cls, data: Any) -> Any:
+        if isinstance(data, dict):
+            valid = list(cls.model_fields)
+            for key in data:
+                if key not in cls.model_fields:
+                    close = difflib.get_close_matches(str(key), valid, n=1, cutoff=0.5)
+                    hint = f"did you mean {close[0]!r}?" if close else f"valid keys: {', '.join(valid)}"
+                    raise ValueError(f"unknown key {key!r}; {hint}")
+        return data
+
+
+def _check_names(names: dict[str, Any], what: str) -> None:
+    for name in names:
+        if not NAME_RE.match(str(name)):
+            raise ValueError(
+                f"{what} name {name!r} must start with a letter or digit and use only letters, digits, '_', '-', '.'"
+            )
+
+
+# ---------------------------------------------------------------------------------------------- data
+class TimesSpec(Strict):
+    """Where snapshot times come from: exactly one of ``field``, ``pattern`` or ``start`` + ``step``."""
+
+    field: Optional[str] = Field(None, description="name of a one-value FieldData array in each file")
+    pattern: Optional[str] = Field(
+        None, description="regular expression searched in each file's base name; its first group is the time"
+    )
+    scale: float = Field(1.0, description="with pattern: time = scale * number")
+    start: Optional[float] = Field(None, description="with step: time of the first file")
+    step: Optional[PositiveFloat] = Field(None, description="with start: time between files")
+
+    @model_validator(mode="after")
+    def _one_source(self) -> "TimesSpec":
+        sources = [self.field is not None, self.pattern is not None, self.start is not None or self.step is not None]
+        if sum(sources) != 1:
+            raise ValueError("give exactly one of 'field', 'pattern', or 'start' with 'step'")
+        if (self.start is None) != (self.step is None):
+            raise ValueError("'start' and 'step' go together")
+        if self.scale != 1.0 and self.pattern is None:
+            raise ValueError("'scale' applies to 'pattern' only")
+        if self.pattern is not None:
+            try:
+                rx = re.compile(self.pattern)
+            except re.error as exc:
+                raise ValueError(f"pattern {self.pattern!r} is not a valid regular expression: {exc}") from None
+            if rx.groups < 1:
+                raise ValueError(f"pattern {self.pattern!r} needs a group, e.g. 'step_(\\d+)'")
+        return self
+
+
+class Data(Strict):
+    """The transient series: files, their times and the velocity array."""
+
+    files: Union[str, list[str]] = Field(description="glob or list of files, relative to the recipe file")
+    times: Union[list[float], TimesSpec] = Field(
+        default_factory=lambda: TimesSpec(field="time"),
+        description="snapshot times: [t0, t1, ...] | {field: name} | {pattern: regex, scale: s} | {start: t0, step: dt}."
+        " Default {field: time}; an XDMF series carries its own times",
+    )
+    velocity: Union[str, tuple[str, str, str]] = Field(
+        description="point or cell array name (3 components), or the names of three scalar arrays"
+    )
+
+    @field_validator("files")
+    @classmethod
+    def _not_empty(cls, v: Union[str, list[str]]) -> Union[str, list[str]]:
+        if isinstance(v, list) and not v:
+            raise ValueError("the list of files is empty")
+        return v
+
+
+# ------------------------------------------------------------------------------------------ releases
+def _release_model() -> type[BaseModel]:
+    fields = {name: (Optional[shape.spec], None) for name, shape in SHAPES.items()}
+    model = create_model("Release", __base__=Strict, **fields)  # type: ignore[call-overload]
+    model.__doc__ = "One release: exactly one shape key (" + ", ".join(SHAPES) + ")."
+
+    def _one_shape(self: Any) -> Any:
+        given = [k for k in SHAPES if getattr(self, k) is not None]
+        if len(given) != 1:
+            raise ValueError(f"give exactly one release shape of {', '.join(SHAPES)}")
+        return self
+
+    model.shape = property(lambda self: next(k for k in SHAPES if getattr(self, k) is not None))  # type: ignore[attr-defined]
+    model.spec = property(lambda self: getattr(self, self.shape))  # type: ignore[attr-defined]
+    return create_model(
+        "Release",
+        __base__=model,
+        __validators__={"_one_shape": model_validator(mode="after")(_one_shape)},
+    )
+
+
+Release = _release_model()
+
+
+# --------------------------------------------------------------------------------------------- lines
+class FrameEvery(Strict):
+    """Output frames every ``every`` time units from the window start (the window end included)."""
+
+    every: PositiveFloat
+
+
+class LineEntry(Strict):
+    """One flow-line entry: its kind, release, window and integration settings."""
+
+    kind: str = Field(description="one of " + ", ".join(LINE_KINDS))
+    release: str = Field(description="name of an entry of 'releases'")
+    start: Optional[float] = Field(None, description="window start (default: first snapshot time)")
+    stop: Optional[float] = Field(None, description="window end (default: last snapshot time)")
+    every: Optional[PositiveFloat] = Field(
+        None, description="time between release instants (streakline, timeline; optional on pathline)"
+    )
+    direction: Optional[Literal["forward", "backward", "both"]] = Field(
+        None, description="streamline only: forward | backward | both (default forward)"
+    )
+    frames: Union[list[float], FrameEvery, None] = Field(
+        None, description="output frame times (default: every snapshot time inside the window)"
+    )
+    step: PositiveFloat = Field(
+        0.25, le=1.0, description="RK4 step as a fraction of the local cell size (length per step / cell size)"
+    )
+    length: Optional[PositiveFloat] = Field(
+        None, description="streamline only: longest arc length per direction (default: twice the domain diagonal)"
+    )
+
+    @field_validator("kind")
+    @classmethod
+    def _known_kind(cls, v: str) -> str:
+        if v not in LINE_KINDS:
+            raise ValueError(f"unknown line kind {v!r}; choose one of {', '.join(sorted(LINE_KINDS))}")
+        return v
+
+    @model_validator(mode="after")
+    def _kind_keys(self) -> "LineEntry":
+        particles = LINE_KINDS[self.kind].particles
+        if particles and self.direction is not None:
+            raise ValueError(f"'direction' applies to streamlines only, not to a {self.kind}")
+        if not particles and self.every is not None:
+            raise ValueError("'every' applies to particle lines only, not to a streamline")
+        if particles and self.length is not None:
+            raise ValueError(f"'length' applies to streamlines only, not to a {self.kind}")
+        if LINE_KINDS[self.kind].needs_every and self.every is None:
+            raise ValueError(f"a {self.kind} needs 'every' (time between release instants)")
+        if self.start is not None and self.stop is not None and self.stop < self.start:
+            raise ValueError(f"stop ({self.stop}) is before start ({self.start})")
+        return self
+
+
+# ------------------------------------------------------------------------------------------- renders
+class Camera(Strict):
+    """Camera placement: eye position, the point looked at, and the up direction."""
+
+    position: Vec3
+    focus: Vec3
+    up: Vec3 = (0.0, 0.0, 1.0)
+    angle: PositiveFloat = Field(30.0, lt=180.0, description="vertical view angle in degrees")
+
+
+class RenderEntry(Strict):
+    """One image per frame of the first listed line entry, coloured by one array over a fixed range."""
+
+    lines: list[str] = Field(min_length=1, description="line entries drawn; frames follow the first")
+    color_by: str = Field("speed", description="point array that colours the lines")
+    range: tuple[float, float] = Field(description="fixed colour range [low, high], the same in every frame")
+    colormap: str = Field("ember", description="one of " + ", ".join(COLORMAPS))
+    size: tuple[PositiveInt, PositiveInt] = Field((1280, 720), description="image width and height in pixels")
+    camera: Optional[Camera] = Field(None, description="default: an oblique view that fits the domain")
+    background: Vec3 = (1.0, 1.0, 1.0)
+    line_width: PositiveFloat = 2.0
+    outline: bool = Field(True, description="draw the domain's bounding box")
+    context: list[str] = Field(
+        default_factory=list, description="surface files drawn in grey for context, relative to the recipe file"
+    )
+
+    @field_validator("colormap")
+    @classmethod
+    def _known_map(cls, v: str) -> str:
+        if v not in COLORMAPS:
+            raise ValueError(f"unknown colormap {v!r}; choose one of {', '.join(COLORMAPS)}")
+        return v
+
+    @model_validator(mode="after")
+    def _range(self) -> "RenderEntry":
+        if not self.range[0] < self.range[1]:
+            raise ValueError(f"range must be [low, high] with low < high, got {list(self.range)}")
+        return self
+
+
+# -------------------------------------------------------------------------------------------- recipe
+class Recipe(Strict):
+    """A vtkflow recipe."""
+
+    vtkflow: Literal[1] = Field(description="recipe format version")
+    data: Data
+    releases: dict[str, Release] = Field(default_factory=dict)  # type: ignore[valid-type]
+    lines: dict[str, LineEntry] = Field(default_factory=dict)
+    renders: dict[str, RenderEntry] = Field(default_factory=dict)
+    output: str = Field("out", description="output folder, relative to the recipe file")
+
+    @model_validator(mode="after")
+    def _references(self) -> "Recipe":
+        _check_names(self.releases, "release")
+        _check_names(self.lines, "line entry")
+        _check_names(self.renders, "render")
+        for name, entry in self.lines.items():
+            if entry.release not in self.releases:
+                raise ValueError(_unknown("release", entry.release, self.releases, f"lines.{name}.release"))
+        for name, render in self.renders.items():
+            if name in self.lines:
+                raise ValueError(f"renders.{name}: a render may not share its name with a line entry")
+            for line in render.lines:
+                if line not in self.lines:
+                    raise ValueError(_unknown("line entry", line, self.lines, f"renders.{name}.lines"))
+        return self
+
+
+def _unknown(what: str, name: str, valid: dict[str, Any], where: str) -> str:
+    close = difflib.get_close_matches(name, list(valid), n=1, cutoff=0.5)
+    hint = f"did you mean {close[0]!r}?" if close else f"choose one of {', '.join(valid) or '(none defined)'}"
+    return f"{where}: unknown {what} {name!r}; {hint}"
+
+
+# ------------------------------------------------------------------------------------------- loading
+@dataclass(frozen=True)
+class LoadedRecipe:
+    """A validated recipe with the file it came from."""
+
+    recipe: Recipe
+    path: Path
+    sha256: str
+
+    @property
+    def base(self) -> Path:
+        """The folder that recipe paths are relative to."""
+        return self.path.parent
+
+
+_TYPE_NAMES = {"str", "int", "float", "bool", "list", "dict", "tuple", "none"}
+
+
+def _is_union_tag(item: Any) -> bool:
+    if not isinstance(item, str):
+        return False
+    return "[" in item or item.lower() in _TYPE_NAMES or item in _MODEL_NAMES
+
+
+def _format_error(err: dict[str, Any]) -> tuple[str, str]:
+    loc = ".".join(str(p) for p in err["loc"] if not _is_union_tag(p))
+    msg = str(err["msg"])
+    for prefix in ("Value error, ", "Assertion failed, "):
+        if msg.startswith(prefix):
+            msg = msg[len(prefix):]
+    if err["type"] == "missing":
+        msg = "missing required key"
+    elif err["type"].endswith("_type") or err["type"].endswith("_parsing") or err["type"] == "literal_error":
+        msg = f"{msg[0].lower()}{msg[1:]} (got {err.get('input')!r})"
+    return loc, msg
+
+
+def _best_error(exc: ValidationError) -> tuple[str, str]:
+    """The most telling error of a validation failure: for a union, the branch that matched the input's type."""
+    errors = exc.errors()
+    mismatch = ("_type", "model_attributes_type")
+    specific = [e for e in errors if not e["type"].endswith(mismatch)]
+    return _format_error((specific or errors)[0])
+
+
+def parse_recipe(data: Any, source: str = "recipe") -> Recipe:
+    """Validate a recipe given as plain data (e.g. a dict); errors name ``source`` and the key path."""
+    if not isinstance(data, dict):
+        raise RecipeError(f"{source}: expected a mapping of recipe keys at the top level, got {type(data).__name__}")
+    try:
+        return Recipe.model_validate(data)
+    except ValidationError as exc:
+        loc, msg = _best_error(exc)
+        raise RecipeError(f"{source}: {loc + ': ' if loc else ''}{msg}") from None
+
+
+def load_recipe(path: str | Path) -> LoadedRecipe:
+    """Read and validate a recipe file.
+
+    Raises
+    ------
+    RecipeError
+        With one line naming the file, the key path and what was expected.
+    InputError
+        If the file cannot be read.
+    """
+    from .errors import InputError
+
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read recipe: {exc.strerror or exc}") from None
+    try:
+        data = yaml.safe_load(raw)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f":{mark.line + 1}" if mark is not None else ""
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        raise RecipeError(f"{path}{where}: YAML syntax error: {problem}") from None
+    recipe = parse_recipe(data, str(path))
+    return LoadedRecipe(recipe=recipe, path=path.resolve(), sha256=hashlib.sha256(raw).hexdigest())
+
+
+def json_schema() -> dict[str, Any]:
+    """JSON Schema of the recipe, for editors."""
+    schema = Recipe.model_json_schema()
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["title"] = "vtkflow recipe"
+    return schema
+
+
+_MODEL_NAMES = {"Recipe", "Data", "TimesSpec", "Release", "LineEntry", "RenderEntry", "Camera", "FrameEvery"} | {
+    getattr(s.spec, "__name__", "") for s in SHAPES.values()
+}

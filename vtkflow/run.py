@@ -1,0 +1,274 @@
+"""Orchestration of a recipe: open the series, plan every entry, stream the snapshots once, write outputs.
+
+All line entries advance together in one pass over the snapshot intervals: only the mesh and two
+snapshots of velocity are in memory at a time. Renders follow, from the files written.
+"""
+
+from __future__ import annotations
+
+import re
+import sys
+import time as _time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Optional, Sequence
+
+import numpy as np
+
+from . import __version__
+from .errors import RecipeError
+from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, release_instants
+from .output import frame_path, write_json, write_vtp
+from .particles import TimeField
+from .recipe import FrameEvery, LineEntry, LoadedRecipe
+from .releases import release_points
+from .series import Series
+
+__all__ = ["open_series", "plan", "Plan", "EntryPlan", "run_recipe", "frame_times"]
+
+Progress = Callable[[str, int, float], None]
+Warn = Callable[[str], None]
+
+
+def _stderr(msg: str) -> None:
+    print(f"vtkflow: warning: {msg}", file=sys.stderr)
+
+
+def open_series(loaded: LoadedRecipe) -> Series:
+    """The series a recipe's ``data`` section names, times and velocity checked."""
+    d = loaded.recipe.data
+    return Series.open(d.files, d.times, d.velocity, base=loaded.base)
+
+
+def frame_times(start: float, stop: float, snapshot_times: np.ndarray, spec: Any, key: str) -> np.ndarray:
+    """Output frame times of an entry: by default every snapshot time inside ``[start, stop]``, both ends included."""
+    eps = TIME_RTOL * max(1.0, float(np.ptp(snapshot_times)) if len(snapshot_times) else 1.0)
+    if spec is None:
+        inner = snapshot_times[(snapshot_times > start + eps) & (snapshot_times < stop - eps)]
+        times = np.concatenate([[start], inner, [stop]])
+    elif isinstance(spec, FrameEvery):
+        times = np.append(release_instants(start, stop, spec.every), stop)
+    else:
+        times = np.asarray(sorted(spec), dtype=float)
+        outside = times[(times < start - eps) | (times > stop + eps)]
+        if outside.size:
+            raise RecipeError(f"{key}.frames: frame time {outside[0]:g} lies outside the window [{start:g}, {stop:g}]")
+    # merge times closer than eps (e.g. stop == last snapshot time)
+    times = np.sort(times)
+    keep = np.concatenate([[True], np.diff(times) > eps])
+    return times[keep]
+
+
+@dataclass
+class EntryPlan:
+    """What one line entry will do: window, release instants, frames, release points."""
+
+    name: str
+    entry: LineEntry
+    start: float
+    stop: float
+    frames: np.ndarray
+    instants: np.ndarray
+    points: np.ndarray
+    inside: np.ndarray
+
+    @property
+    def n_dropped(self) -> int:
+        return int(np.count_nonzero(~self.inside))
+
+
+@dataclass
+class Plan:
+    """Everything a run will do, checked without integrating."""
+
+    series: Series
+    entries: list[EntryPlan] = field(default_factory=list)
+    releases: dict[str, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
+
+    @property
+    def n_frames(self) -> int:
+        return sum(len(e.frames) for e in self.entries)
+
+
+def plan(loaded: LoadedRecipe, series: Series) -> Plan:
+    """Resolve windows, frames and release points of every entry; report bad windows as :class:`RecipeError`."""
+    recipe = loaded.recipe
+    times = series.times
+    t_first, t_last = float(times[0]), float(times[-1])
+    eps = TIME_RTOL * max(1.0, t_last - t_first)
+    result = Plan(series)
+    for rname, release in recipe.releases.items():
+        pts = release_points(release.shape, release.spec)
+        result.releases[rname] = (pts, series.mesh.contains(pts))
+    for name, entry in recipe.lines.items():
+        key = f"lines.{name}"
+        start = t_first if entry.start is None else float(entry.start)
+        stop = t_last if entry.stop is None else float(entry.stop)
+        for k, value in (("start", start), ("stop", stop)):
+            if value < t_first - eps or value > t_last + eps:
+                raise RecipeError(
+                    f"{loaded.path}: {key}.{k}: {value:g} lies outside the snapshot times [{t_first:g}, {t_last:g}]"
+                )
+        start, stop = max(start, t_first), min(stop, t_last)
+        frames = frame_times(start, stop, times, entry.frames, key)
+        particles = LINE_KINDS[entry.kind].particles
+        instants = release_instants(start, stop, entry.every) if particles else np.zeros(0)
+        pts, inside = result.releases[entry.release]
+        result.entries.append(EntryPlan(name, entry, start, stop, frames, instants, pts, inside))
+    return result
+
+
+def _tracer(p: EntryPlan, series: Series) -> Any:
+    e = p.entry
+    if LINE_KINDS[e.kind].particles:
+        return ParticleTracer(p.name, e.kind, p.points, p.inside, p.instants, p.frames, (p.start, p.stop), e.step)
+    length = e.length if e.length is not None else 2.0 * series.mesh.diagonal
+    return StreamlineTracer(p.name, p.points, p.inside, p.frames, e.direction or "forward", e.step, length)
+
+
+def _clear_frames(output: Path, names: Sequence[str], suffix: str) -> None:
+    """Remove frames a previous run left in the entry folders, so old and new frames never mix."""
+    for name in names:
+        folder = output / name
+        if folder.is_dir():
+            rx = re.compile(rf"^{re.escape(name)}_\d{{4,}}{re.escape(suffix)}$")
+            for f in folder.iterdir():
+                if rx.match(f.name):
+                    f.unlink()
+
+
+def run_recipe(
+    loaded: LoadedRecipe,
+    output: Optional[Path] = None,
+    progress: Optional[Progress] = None,
+    warn: Warn = _stderr,
+    render: bool = True,
+) -> dict[str, Any]:
+    """Run a recipe: compute every line entry, write its frames, render, and write ``manifest.json``.
+
+    Parameters
+    ----------
+    loaded : LoadedRecipe
+    output : Path, optional
+        Output folder; default: the recipe's ``output``, relative to the recipe file.
+    progress : callable, optional
+        ``progress(what, done, total)`` after each written frame.
+    warn : callable
+        Receives one-line warnings (release points dropped, NaN velocities).
+
+    Returns
+    -------
+    manifest : dict
+        What ``manifest.json`` holds.
+    """
+    started = _time.perf_counter()
+    recipe = loaded.recipe
+    out = Path(output) if output is not None else loaded.base / recipe.output
+    series = open_series(loaded)
+    p = plan(loaded, series)
+    for rname, (pts, inside) in p.releases.items():
+        dropped = int(np.count_nonzero(~inside))
+        if dropped and any(e.entry.release == rname for e in p.entries):
+            warn(f"releases.{rname}: {dropped} of {len(pts)} release points lie outside the mesh and are dropped")
+
+    _clear_frames(out, [e.name for e in p.entries], ".vtp")
+    tracers = [_tracer(e, series) for e in p.entries]
+    frames: dict[str, list[dict[str, Any]]] = {e.name: [] for e in p.entries}
+    total = p.n_frames
+    done = 0
+
+    def emit_for(name: str) -> Callable[[int, float, Any], None]:
+        def emit(index: int, t: float, polydata: Any) -> None:
+            nonlocal done
+            path = write_vtp(polydata, frame_path(out, name, index))
+            frames[name].append({"index": index, "time": t, "file": str(path.relative_to(out))})
+            done += 1
+            if progress is not None:
+                progress(name, done, total)
+
+        return emit
+
+    emits = {t.name: emit_for(t.name) for t in tracers}
+    field = TimeField(series.mesh)
+    times = series.times
+    last_needed = max((e.stop for e in p.entries), default=float(times[0]))
+    n_intervals = max(1, len(series) - 1)
+    nan_files: dict[str, int] = {}
+    for k in range(n_intervals):
+        k1 = min(k + 1, len(series) - 1)
+        t0, t1 = float(times[k]), float(times[k1])
+        if t0 > last_needed:
+            break
+        u0, u1 = series.velocity(k), series.velocity(k1)
+        for j, u in ((k, u0), (k1, u1)):
+            n_nan = int(np.count_nonzero(~np.isfinite(u).all(axis=1)))
+            if n_nan:
+                nan_files[series.snapshots[j].label] = n_nan
+        field.load(t0, u0, t1, u1)
+        for tracer in tracers:
+            tracer.interval(field, t0, t1, k == 0, emits[tracer.name])
+
+    entries: dict[str, Any] = {}
+    n_nan_particles = 0
+    for e, tracer in zip(p.entries, tracers):
+        counts = tracer.counts()
+        n_nan_particles += counts["stopped_nan"]
+        entries[e.name] = {
+            "kind": e.entry.kind,
+            "release": e.entry.release,
+            "window": [e.start, e.stop],
+            "frames": frames[e.name],
+            "counts": counts,
+        }
+    if n_nan_particles:
+        where = ", ".join(f"{f} ({n} points)" for f, n in nan_files.items())
+        warn(f"{n_nan_particles} particles or streamlines stopped at NaN velocity; NaN values in {where}")
+
+    renders: dict[str, Any] = {}
+    if render and recipe.renders:
+        renders = _render_all(loaded, out, entries, series, progress)
+
+    manifest = {
+        "vtkflow_version": __version__,
+        "recipe": str(loaded.path),
+        "recipe_sha256": loaded.sha256,
+        "series": {
+            "snapshots": len(series),
+            "time_range": [float(times[0]), float(times[-1])],
+            "mesh": {"points": series.mesh.n_points, "cells": series.mesh.n_cells},
+        },
+        "status_names": STATUS_NAMES,
+        "entries": entries,
+        "renders": renders,
+        "elapsed_seconds": round(_time.perf_counter() - started, 3),
+    }
+    write_json(manifest, out / "manifest.json")
+    return manifest
+
+
+def _render_all(
+    loaded: LoadedRecipe, out: Path, entries: dict[str, Any], series: Series, progress: Optional[Progress]
+) -> dict[str, Any]:
+    from .render import render_frame  # rendering loads OpenGL: only when asked for
+
+    result: dict[str, Any] = {}
+    total = sum(len(entries[r.lines[0]]["frames"]) for r in loaded.recipe.renders.values())
+    done = 0
+    _clear_frames(out, list(loaded.recipe.renders), ".png")
+    for name, spec in loaded.recipe.renders.items():
+        context = [loaded.base / c for c in spec.context]
+        images = []
+        for frame in entries[spec.lines[0]]["frames"]:
+            layers = [out / frame["file"]]
+            for other in spec.lines[1:]:
+                match = [f for f in entries[other]["frames"] if abs(f["time"] - frame["time"]) <= TIME_RTOL * max(1.0, abs(frame["time"]))]
+                if match:
+                    layers.append(out / match[0]["file"])
+            png = frame_path(out, name, frame["index"], ".png")
+            render_frame(layers, png, spec, series.mesh.bounds, context)
+            images.append({"index": frame["index"], "time": frame["time"], "file": str(png.relative_to(out))})
+            done += 1
+            if progress is not None:
+                progress(name, done, total)
+        result[name] = {"lines": list(spec.lines), "frames": images}
+    return result
