@@ -138,3 +138,46 @@ def helix(omega: float, w: float) -> Flow:
 def write_recipe(path: Path, text: str) -> Path:
     path.write_text(text)
     return path
+
+
+def run_case(folder: Path, mesh: pv.UnstructuredGrid, flow: Flow, times: Sequence[float], body: str,
+             association: str = "point") -> tuple[dict, Path]:
+    """Write a series of ``flow`` on ``mesh`` and run a recipe whose ``releases``/``lines`` are ``body``.
+
+    Returns the manifest and the output folder.
+    """
+    from vtkflow.recipe import load_recipe
+    from vtkflow.run import run_recipe
+
+    write_series(mesh, flow, times, folder / "case", association=association)
+    recipe = folder / "recipe.yaml"
+    recipe.write_text("vtkflow: 1\ndata: {files: 'case/*.vtu', velocity: U}\noutput: out\n" + body)
+    manifest = run_recipe(load_recipe(recipe), warn=lambda msg: None)
+    return manifest, folder / "out"
+
+
+def last_frame(out: Path, manifest: dict, entry: str) -> pv.PolyData:
+    """The last frame of an entry, read with VTK's XML reader (through PyVista)."""
+    return pv.read(out / manifest["entries"][entry]["frames"][-1]["file"])
+
+
+def polylines_of(mesh: pv.PolyData) -> list[np.ndarray]:
+    """Point index arrays of each polyline of a PolyData."""
+    lines = np.asarray(mesh.lines)
+    out, i = [], 0
+    while i < len(lines):
+        n = lines[i]
+        out.append(lines[i + 1:i + 1 + n])
+        i += n + 1
+    return out
+
+
+def distance_to_polyline(points: np.ndarray, line: np.ndarray) -> np.ndarray:
+    """Distance of each point to a polyline given by its vertices (M, 3)."""
+    a, b = line[:-1], line[1:]
+    ab = b - a
+    L2 = np.maximum((ab * ab).sum(axis=1), 1e-300)
+    p = points[:, None, :]
+    s = np.clip(((p - a) * ab).sum(axis=2) / L2, 0.0, 1.0)
+    d = np.linalg.norm(p - (a + s[..., None] * ab), axis=2)
+    return d.min(axis=1)
