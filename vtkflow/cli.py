@@ -83,7 +83,7 @@ def run(
 
         with bar:
             manifest = run_recipe(loaded, out, progress=progress, render=not no_render)
-        where = Path(out) if out is not None else loaded.base / loaded.recipe.output
+        where = manifest["output"]
         for name, entry in manifest["entries"].items():
             c = entry["counts"]
             typer.echo(

@@ -6,6 +6,7 @@ snapshots of velocity are in memory at a time. Renders follow, from the files wr
 
 from __future__ import annotations
 
+import os
 import re
 import sys
 import time as _time
@@ -163,7 +164,7 @@ def run_recipe(
     """
     started = _time.perf_counter()
     recipe = loaded.recipe
-    out = Path(output) if output is not None else loaded.base / recipe.output
+    out = Path(os.path.normpath(Path(output) if output is not None else loaded.base / recipe.output))
     series = open_series(loaded)
     p = plan(loaded, series)
     for rname, (pts, inside) in p.releases.items():
@@ -232,6 +233,7 @@ def run_recipe(
         "vtkflow_version": __version__,
         "recipe": str(loaded.path),
         "recipe_sha256": loaded.sha256,
+        "output": str(out),
         "series": {
             "snapshots": len(series),
             "time_range": [float(times[0]), float(times[-1])],

@@ -1,0 +1,127 @@
+"""The particle engine on edge cases: boundary exits, walls, NaN velocity, release instants, streamline ends."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from flows import box_mesh
+from vtkflow.lines import release_instants
+from vtkflow.mesh import Mesh
+from vtkflow.particles import State, Status, TimeField, advance, place, trace_streamlines
+
+
+def uniform_field(mesh: Mesh, u0, u1=None, t0=0.0, t1=1.0) -> TimeField:
+    f = TimeField(mesh)
+    a = np.broadcast_to(np.asarray(u0, float), (mesh.n_points, 3))
+    b = a if u1 is None else np.broadcast_to(np.asarray(u1, float), (mesh.n_points, 3))
+    f.load(t0, np.ascontiguousarray(a), t1, np.ascontiguousarray(b))
+    return f
+
+
+@pytest.fixture(scope="module")
+def cube():
+    return Mesh(box_mesh((0, 0, 0), (1, 1, 1), (5, 5, 5), "tetra"))
+
+
+def release(field, x0, t0=0.0):
+    x0 = np.atleast_2d(np.asarray(x0, float))
+    s = State.empty(len(x0))
+    place(s, np.arange(len(x0)), x0, np.full(len(x0), t0), field)
+    return s
+
+
+def test_exit_stops_on_the_boundary_face(cube):
+    """Uniform flow (2, 0.5, 0) carries particles through the face x = 1: they stop on it, at the time the
+    straight path reaches it (exact kinematics; tolerance 1e-9 of the cell size from the bisection)."""
+    field = uniform_field(cube, (2.0, 0.5, 0.0))
+    x0 = np.array([[0.1, 0.2, 0.3], [0.5, 0.1, 0.7], [0.9, 0.5, 0.5]])
+    s = release(field, x0)
+    advance(s, 1.0, field, 0.25)
+    assert np.all(s.status == Status.exited)
+    np.testing.assert_allclose(s.x[:, 0], 1.0, atol=1e-9)
+    t_exit = (1.0 - x0[:, 0]) / 2.0
+    np.testing.assert_allclose(s.t, t_exit, atol=1e-9)
+    np.testing.assert_allclose(s.x[:, 1], x0[:, 1] + 0.5 * t_exit, atol=1e-9)
+
+
+def test_flow_along_a_wall_does_not_exit(cube):
+    """A particle on the wall y = 0 moving parallel to it stays inside and keeps going (common practice:
+    a tangential step is not an exit)."""
+    field = uniform_field(cube, (0.3, 0.0, 0.0))
+    s = release(field, [[0.1, 0.0, 0.5], [0.2, 0.0, 0.0]])  # on a face, and on an edge
+    advance(s, 2.0, field, 0.25)
+    assert np.all(s.status == Status.active), s.status
+    np.testing.assert_allclose(s.x[:, 0], [0.7, 0.8], atol=1e-12)
+
+
+def test_nan_velocity_stops_particles(cube):
+    """Where the later snapshot holds NaN, particles stop with status nan at their last good position."""
+    u0 = np.tile([1.0, 0.0, 0.0], (cube.n_points, 1))
+    u1 = u0.copy()
+    u1[cube.points[:, 0] > 0.55] = np.nan
+    field = TimeField(cube)
+    field.load(0.0, u0, 1.0, u1)
+    s = release(field, [[0.1, 0.5, 0.5], [0.1, 0.2, 0.2]])
+    advance(s, 1.0, field, 0.25)
+    assert np.all(s.status == Status.nan)
+    assert np.all(s.x[:, 0] < 0.6) and np.all(s.x[:, 0] > 0.1)
+    # at t = 0 exactly, the NaN snapshot has zero weight and does not stop a particle
+    s0 = release(field, [[0.9, 0.5, 0.5]])
+    assert s0.status[0] == Status.active
+
+
+def test_time_interpolation_is_linear_between_snapshots(cube):
+    """u = (1 + t, 0, 0) from snapshots at t = 0 and 1: x(t) = x0 + t + t^2 / 2, integrated exactly by RK4
+    (a quadratic in t; Simpson's rule is exact for it). Tolerance: round-off."""
+    field = uniform_field(cube, (1.0, 0.0, 0.0), (2.0, 0.0, 0.0))
+    s = release(field, [[0.05, 0.5, 0.5]])
+    advance(s, 0.5, field, 0.25)
+    assert s.status[0] == Status.active
+    assert s.x[0, 0] == pytest.approx(0.05 + 0.5 + 0.125, abs=1e-12)
+
+
+def test_steps_are_bounded_by_the_cell_size(cube):
+    recorded = []
+    field = uniform_field(cube, (1.0, 0.0, 0.0))
+    s = release(field, [[0.05, 0.5, 0.5]])
+    advance(s, 0.5, field, 0.25, record=lambda i, x, t, v: recorded.append(x.copy()))
+    xs = np.concatenate([[0.05]] + [r[:, 0] for r in recorded])
+    assert np.diff(xs).max() <= 0.25 * cube.point_size.max() + 1e-12
+
+
+@pytest.mark.parametrize(
+    "start, stop, every, n",
+    [(0.0, 1.0, 0.1, 11), (0.0, 0.3, 0.1, 4), (0.2, 0.7, 0.25, 3), (1.0, 1.0, 0.5, 1), (0.0, 1.0, None, 1)],
+)
+def test_release_instants(start, stop, every, n):
+    """start + k * every for k = 0, 1, ... while <= stop, robust to round-off (0.1 * 3 > 0.3 in floats)."""
+    inst = release_instants(start, stop, every)
+    assert len(inst) == n and inst[0] == start and inst[-1] <= stop + 1e-12
+
+
+def test_streamline_both_directions_and_ends(cube):
+    """In the uniform field (1, 0, 0) a streamline through (0.5, 0.5, 0.5) runs from face x = 0 to x = 1."""
+    field = uniform_field(cube, (1.0, 0.0, 0.0))
+    lines = trace_streamlines(field, 0.0, np.array([[0.5, 0.5, 0.5]]), np.array([7]), "both", 0.25, 10.0)
+    assert lines.lengths.tolist() == [len(lines.points)]
+    np.testing.assert_allclose(lines.points[[0, -1], 0], [0.0, 1.0], atol=1e-9)
+    assert np.all(np.diff(lines.points[:, 0]) > 0)
+    assert np.all(lines.seed == 7)
+    assert np.all(lines.ends == Status.exited)
+    np.testing.assert_allclose(lines.velocity, np.tile([1.0, 0.0, 0.0], (len(lines.points), 1)))
+
+
+def test_streamline_stops_at_stagnation_and_at_length(cube):
+    """u = (x - 0.5, -(y - 0.5), 0) stagnates at the centre: a seed there stalls; in uniform flow a short
+    length limit ends the streamline at that arc length."""
+    pts = cube.points
+    f = TimeField(cube)
+    u = np.stack([pts[:, 0] - 0.5, -(pts[:, 1] - 0.5), np.zeros(len(pts))], axis=1)
+    f.load(0.0, u, 1.0, u)
+    lines = trace_streamlines(f, 0.0, np.array([[0.5, 0.5, 0.5]]), np.array([0]), "forward", 0.25, 10.0)
+    assert lines.ends[0, 0] == Status.stalled and len(lines.points) == 1
+    g = uniform_field(cube, (0.0, 1.0, 0.0))
+    lines = trace_streamlines(g, 0.0, np.array([[0.5, 0.1, 0.5]]), np.array([0]), "forward", 0.25, 0.3)
+    assert lines.arc_length[-1] == pytest.approx(0.3, abs=1e-12)
+    assert lines.ends[0, 0] == Status.active
