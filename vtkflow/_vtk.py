@@ -5,6 +5,9 @@ Rendering classes are imported lazily by ``vtkflow.render``.
 
 from __future__ import annotations
 
+from contextlib import contextmanager
+from typing import Iterator
+
 from vtkmodules.util.numpy_support import numpy_to_vtk, vtk_to_numpy  # noqa: F401
 from vtkmodules.vtkCommonCore import (  # noqa: F401
     vtkCommand,
@@ -15,6 +18,7 @@ from vtkmodules.vtkCommonCore import (  # noqa: F401
     vtkOutputWindow,
     vtkPoints,
     vtkStringArray,
+    vtkStringOutputWindow,
 )
 from vtkmodules.vtkCommonDataModel import (  # noqa: F401
     vtkCellArray,
@@ -23,7 +27,6 @@ from vtkmodules.vtkCommonDataModel import (  # noqa: F401
 )
 from vtkmodules.vtkCommonExecutionModel import vtkStreamingDemandDrivenPipeline  # noqa: F401
 from vtkmodules.vtkFiltersCore import vtkProbeFilter  # noqa: F401
-from vtkmodules.vtkFiltersPoints import vtkPointInterpolator  # noqa: F401
 from vtkmodules.vtkFiltersVerdict import vtkCellSizeFilter  # noqa: F401
 from vtkmodules.vtkCommonDataModel import vtkStaticCellLocator  # noqa: F401
 from vtkmodules.vtkIOLegacy import vtkUnstructuredGridReader  # noqa: F401
@@ -33,3 +36,24 @@ from vtkmodules.vtkIOXML import (  # noqa: F401
     vtkXMLUnstructuredGridReader,
     vtkXMLUnstructuredGridWriter,
 )
+
+
+@contextmanager
+def captured_messages() -> Iterator[list[str]]:
+    """Collect VTK's error and warning text instead of letting VTK print it; yields the list it fills.
+
+    The messages are split per report when the block ends; VTK's logger is silenced meanwhile.
+    """
+    window = vtkStringOutputWindow()
+    previous = vtkOutputWindow.GetInstance()
+    cutoff = vtkLogger.GetCurrentVerbosityCutoff()
+    messages: list[str] = []
+    vtkOutputWindow.SetInstance(window)
+    vtkLogger.SetStderrVerbosity(vtkLogger.VERBOSITY_OFF)
+    try:
+        yield messages
+    finally:
+        vtkOutputWindow.SetInstance(previous)
+        vtkLogger.SetStderrVerbosity(vtkLogger.ConvertToVerbosity(cutoff))
+        text = window.GetOutput() or ""
+        messages.extend(m.strip() for m in text.split("\n\n") if m.strip())

@@ -49,7 +49,7 @@ def _errors() -> Iterator[None]:
 def _console():  # rich is imported only by the commands that print tables or bars
     from rich.console import Console
 
-    return Console(stderr=False, highlight=False)
+    return Console(stderr=False, highlight=False, markup=False, soft_wrap=True)
 
 
 @app.command()
@@ -152,7 +152,7 @@ def inspect(files: List[Path] = typer.Argument(..., help="Mesh or series files."
             for snap in expand_files([str(f)], Path.cwd(), key="FILE"):
                 data = read_file(snap)
                 mesh = Mesh(data.grid)
-                con.print(f"[bold]{snap.label}[/bold]")
+                con.print(f"{snap.label}")
                 if data.time is not None:
                     con.print(f"  time      {data.time:g}")
                 b = mesh.bounds

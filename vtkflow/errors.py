@@ -6,7 +6,7 @@ everything else is a bug and shows a traceback.
 
 from __future__ import annotations
 
-__all__ = ["VtkflowError", "RecipeError", "InputError"]
+__all__ = ["VtkflowError", "RecipeError", "InputError", "OutputError"]
 
 
 class VtkflowError(Exception):
@@ -19,3 +19,7 @@ class RecipeError(VtkflowError, ValueError):
 
 class InputError(VtkflowError, OSError):
     """An input file is missing, unreadable, truncated or lacks what the recipe asks for."""
+
+
+class OutputError(VtkflowError, OSError):
+    """An output cannot be written: the folder cannot be made, the disk is full, permission is denied."""

@@ -42,6 +42,20 @@ def release_instants(start: float, stop: float, every: Optional[float]) -> np.nd
     return start + every * np.arange(n)
 
 
+def snap_times(values: np.ndarray, targets: np.ndarray, window: tuple[float, float]) -> np.ndarray:
+    """``values`` moved onto the nearest of ``targets`` where they differ by round-off only (``TIME_RTOL``
+    of the window length), so that a particle released "at" a frame time is in that frame."""
+    if values.size == 0 or targets.size == 0:
+        return values
+    eps = TIME_RTOL * max(1.0, abs(window[1] - window[0]))
+    j = np.clip(np.searchsorted(targets, values), 1, len(targets)) - 1
+    out = values.copy()
+    for cand in (targets[j], targets[np.minimum(j + 1, len(targets) - 1)]):
+        close = np.abs(cand - out) <= eps
+        out[close] = cand[close]
+    return out
+
+
 class _History:
     """Vertices recorded along particle paths, consolidated into flat arrays on demand."""
 
@@ -97,6 +111,7 @@ class ParticleTracer:
     ) -> None:
         self.name, self.kind, self.step = name, kind, step
         self.frames, self.window = np.asarray(frames, dtype=float), window
+        instants = snap_times(np.asarray(instants, dtype=float), self.frames, window)
         self.n_points = len(points)
         self.release_points = np.asarray(points, dtype=float)
         n = len(instants) * self.n_points
@@ -225,7 +240,8 @@ class StreamlineTracer:
         return polylines(lines.points, lines.lengths, arrays, time, {"status_names": _status_names()})
 
     def counts(self) -> dict[str, int]:
-        ends = np.concatenate([e.ravel() for e in self._ends]) if self._ends else np.zeros(0, np.int8)
+        # one count per streamline: a 'both' streamline is exited or stopped if either of its halves is
+        ends = np.concatenate([_per_line(e) for e in self._ends]) if self._ends else np.zeros(0, np.int8)
         return {
             "released": int(len(self.seeds) * len(self._ends)),
             "exited": int(np.count_nonzero(ends == Status.exited)),
@@ -233,6 +249,15 @@ class StreamlineTracer:
             "stopped_nan": int(np.count_nonzero(ends == Status.nan)),
             "dropped_at_release": self.n_dropped * len(self._ends),
         }
+
+
+def _per_line(ends: np.ndarray) -> np.ndarray:
+    """One status per streamline from the status of each of its halves (``(n_directions, L)``):
+    exited if a half exited, else nan or stalled if a half stopped so, else active."""
+    out = np.full(ends.shape[1], int(Status.active), dtype=np.int8)
+    for status in (Status.stalled, Status.nan, Status.exited):  # later ones take precedence
+        out[(ends == status).any(axis=0)] = int(status)
+    return out
 
 
 def _status_names() -> Any:

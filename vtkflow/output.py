@@ -17,6 +17,7 @@ import numpy as np
 
 from . import _vtk
 from ._vtk import numpy_to_vtk
+from .errors import OutputError
 
 __all__ = ["polylines", "write_vtp", "read_vtp", "atomic_path", "write_json", "frame_path"]
 
@@ -31,12 +32,19 @@ def frame_path(output: Path, entry: str, index: int, suffix: str = ".vtp") -> Pa
 @contextmanager
 def atomic_path(path: Path) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; on success rename it to ``path``, on failure remove it."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=TMP_SUFFIX, dir=path.parent)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=TMP_SUFFIX, dir=path.parent)
+    except OSError as exc:
+        raise OutputError(f"{path.parent}: cannot create or write in this output folder ({exc.strerror or exc})") from None
     os.close(fd)
     try:
         yield Path(tmp)
         os.replace(tmp, path)
+    except OSError as exc:
+        if isinstance(exc, OutputError):
+            raise
+        raise OutputError(f"{path}: cannot write ({exc.strerror or exc})") from None
     finally:
         if os.path.exists(tmp):
             os.unlink(tmp)
@@ -99,8 +107,11 @@ def write_vtp(polydata: Any, path: Path) -> Path:
         w.SetInputData(polydata)
         w.SetDataModeToBinary()
         w.SetCompressorTypeToZLib()
-        if w.Write() != 1:
-            raise OSError(f"{path}: VTK could not write the file")
+        with _vtk.captured_messages() as messages:
+            ok = w.Write() == 1
+        if not ok:
+            detail = messages[0].strip().splitlines()[-1] if messages else "no detail"
+            raise OutputError(f"{path}: VTK could not write the file ({detail})")
     return path
 
 

@@ -21,7 +21,6 @@ from typing import Any, Literal, Optional, Union
 import yaml
 from pydantic import (
     BaseModel,
-    ConfigDict,
     Field,
     PositiveFloat,
     PositiveInt,
@@ -31,6 +30,7 @@ from pydantic import (
     model_validator,
 )
 
+from ._model import Strict
 from .colormaps import COLORMAPS
 from .errors import RecipeError
 from .lines import LINE_KINDS
@@ -54,29 +54,11 @@ Vec3 = tuple[float, float, float]
 NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 
 
-class Strict(BaseModel):
-    """Base of every recipe model: frozen, and unknown keys are errors that suggest the closest key."""
-
-    model_config = ConfigDict(extra="forbid", frozen=True)
-
-    @model_validator(mode="before")
-    @classmethod
-    def _known_keys(cls, data: Any) -> Any:
-        if isinstance(data, dict):
-            valid = list(cls.model_fields)
-            for key in data:
-                if key not in cls.model_fields:
-                    close = difflib.get_close_matches(str(key), valid, n=1, cutoff=0.5)
-                    hint = f"did you mean {close[0]!r}?" if close else f"valid keys: {', '.join(valid)}"
-                    raise ValueError(f"unknown key {key!r}; {hint}")
-        return data
-
-
-def _check_names(names: dict[str, Any], what: str) -> None:
+def _check_names(names: dict[str, Any], what: str, section: str) -> None:
     for name in names:
         if not NAME_RE.match(str(name)):
             raise ValueError(
-                f"{what} name {name!r} must start with a letter or digit and use only letters, digits, '_', '-', '.'"
+                f"{section}: {what} name {name!r} must start with a letter or digit and use only letters, digits, '_', '-', '.'"
             )
 
 
@@ -166,7 +148,7 @@ class FrameEvery(Strict):
 class LineEntry(Strict):
     """One flow-line entry: its kind, release, window and integration settings."""
 
-    kind: str = Field(description="one of " + ", ".join(LINE_KINDS))
+    kind: str = Field(description="one of " + ", ".join(LINE_KINDS), json_schema_extra={"enum": list(LINE_KINDS)})
     release: str = Field(description="name of an entry of 'releases'")
     start: Optional[float] = Field(None, description="window start (default: first snapshot time)")
     stop: Optional[float] = Field(None, description="window end (default: last snapshot time)")
@@ -225,7 +207,7 @@ class RenderEntry(Strict):
     lines: list[str] = Field(min_length=1, description="line entries drawn; frames follow the first")
     color_by: str = Field("speed", description="point array that colours the lines")
     range: tuple[float, float] = Field(description="fixed colour range [low, high], the same in every frame")
-    colormap: str = Field("ember", description="one of " + ", ".join(COLORMAPS))
+    colormap: str = Field("ember", description="one of " + ", ".join(COLORMAPS), json_schema_extra={"enum": list(COLORMAPS)})
     size: tuple[PositiveInt, PositiveInt] = Field((1280, 720), description="image width and height in pixels")
     camera: Optional[Camera] = Field(None, description="default: an oblique view that fits the domain")
     background: Vec3 = (1.0, 1.0, 1.0)
@@ -262,9 +244,9 @@ class Recipe(Strict):
 
     @model_validator(mode="after")
     def _references(self) -> "Recipe":
-        _check_names(self.releases, "release")
-        _check_names(self.lines, "line entry")
-        _check_names(self.renders, "render")
+        _check_names(self.releases, "release", "releases")
+        _check_names(self.lines, "line entry", "lines")
+        _check_names(self.renders, "render", "renders")
         for name, entry in self.lines.items():
             if entry.release not in self.releases:
                 raise ValueError(_unknown("release", entry.release, self.releases, f"lines.{name}.release"))
@@ -313,9 +295,14 @@ def _format_error(err: dict[str, Any]) -> tuple[str, str]:
     for prefix in ("Value error, ", "Assertion failed, "):
         if msg.startswith(prefix):
             msg = msg[len(prefix):]
-    if err["type"] == "missing":
+    if err["type"] == "missing" and err["loc"] and isinstance(err["loc"][-1], int):
+        loc = ".".join(str(p) for p in err["loc"][:-1] if not _is_union_tag(p))
+        msg = f"too few values (needs {err['loc'][-1] + 1} or more)"
+    elif err["type"] == "missing":
         msg = "missing required key"
-    elif err["type"].endswith("_type") or err["type"].endswith("_parsing") or err["type"] == "literal_error":
+    elif err["type"] == "too_long":
+        msg = f"{msg[0].lower()}{msg[1:]}"
+    elif err["type"] not in ("value_error", "assertion_error", "extra_forbidden"):
         msg = f"{msg[0].lower()}{msg[1:]} (got {err.get('input')!r})"
     return loc, msg
 

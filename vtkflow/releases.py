@@ -12,7 +12,9 @@ from __future__ import annotations
 from typing import Annotated, Any, Callable, NamedTuple
 
 import numpy as np
-from pydantic import BaseModel, ConfigDict, Field, PositiveFloat, PositiveInt, model_validator
+from pydantic import Field, PositiveFloat, PositiveInt, model_validator
+
+from ._model import Strict
 
 __all__ = [
     "SHAPES",
@@ -28,8 +30,8 @@ __all__ = [
 Vec3 = tuple[float, float, float]
 
 
-class _Shape(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+class _Shape(Strict):
+    """Base of the shape models (frozen; unknown keys suggest the closest one)."""
 
 
 class LineShape(_Shape):

@@ -17,7 +17,7 @@ from typing import Any, Callable, Optional, Sequence
 import numpy as np
 
 from . import __version__
-from .errors import RecipeError
+from .errors import OutputError, RecipeError
 from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, release_instants
 from .output import frame_path, write_json, write_vtp
 from .particles import TimeField
@@ -172,6 +172,13 @@ def run_recipe(
         if dropped and any(e.entry.release == rname for e in p.entries):
             warn(f"releases.{rname}: {dropped} of {len(pts)} release points lie outside the mesh and are dropped")
 
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        # a manifest describes one complete run: the old one goes before any of its frames do
+        (out / "manifest.json").unlink(missing_ok=True)
+    except OSError as exc:
+        key = "--output" if output is not None else "output"
+        raise OutputError(f"{out}: cannot use this {key} folder ({exc.strerror or exc})") from None
     _clear_frames(out, [e.name for e in p.entries], ".vtp")
     tracers = [_tracer(e, series) for e in p.entries]
     frames: dict[str, list[dict[str, Any]]] = {e.name: [] for e in p.entries}
@@ -223,7 +230,8 @@ def run_recipe(
         }
     if n_nan_particles:
         where = ", ".join(f"{f} ({n} points)" for f, n in nan_files.items())
-        warn(f"{n_nan_particles} particles or streamlines stopped at NaN velocity; NaN values in {where}")
+        what = "particle or streamline" if n_nan_particles == 1 else "particles or streamlines"
+        warn(f"{n_nan_particles} {what} stopped at NaN velocity; NaN values in {where}")
 
     renders: dict[str, Any] = {}
     if render and recipe.renders:

@@ -11,6 +11,7 @@ Readers are chosen by file suffix from :data:`READERS`: VTK's own readers for ``
 from __future__ import annotations
 
 import glob
+import os
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -52,21 +53,6 @@ class Snapshot:
 
 
 # ------------------------------------------------------------------------------------------- readers
-class _VtkErrors:
-    """Collects VTK error events of a reader instead of letting VTK print them."""
-
-    def __init__(self, *objects: Any) -> None:
-        self.messages: list[str] = []
-        for obj in objects:
-            obj.AddObserver(_vtk.vtkCommand.ErrorEvent, self._on_error)
-            obj.AddObserver(_vtk.vtkCommand.WarningEvent, self._on_error)
-
-    def _on_error(self, obj: Any, event: str, calldata: Any = None) -> None:
-        self.messages.append(str(calldata) if calldata is not None else event)
-
-    _on_error.CallDataType = 8  # type: ignore[attr-defined]  # VTK_STRING: receive the message text
-
-
 def _arrays(data: Any) -> dict[str, np.ndarray]:
     out = {}
     for i in range(data.GetNumberOfArrays()):
@@ -77,20 +63,38 @@ def _arrays(data: Any) -> dict[str, np.ndarray]:
     return out
 
 
-def _read_vtk(path: Path, step: int) -> SnapshotData:
-    suffix = path.suffix.lower()
-    reader = _vtk.vtkXMLUnstructuredGridReader() if suffix == ".vtu" else _vtk.vtkUnstructuredGridReader()
+def _run_reader(reader: Any, path: Path, arrays: bool = True) -> Any:
+    """Run a VTK reader on ``path``; any error it reports becomes one :class:`InputError` line."""
     reader.SetFileName(str(path))
-    if suffix != ".vtu":
+    with _vtk.captured_messages() as messages:
+        if not arrays:
+            reader.UpdateInformation()
+            reader.GetPointDataArraySelection().DisableAllArrays()
+            reader.GetCellDataArraySelection().DisableAllArrays()
+        reader.Update()
+    grid = reader.GetOutput()
+    errors = [m for m in messages if m.startswith("ERROR")]
+    if errors or grid is None or grid.GetNumberOfPoints() == 0:
+        detail = _vtk_detail(errors[0]) if errors else "no points read"
+        raise InputError(f"{path}: not a readable, complete {path.suffix} unstructured grid ({detail})")
+    return grid
+
+
+def _vtk_detail(message: str) -> str:
+    """The informative part of a VTK error report (its last line, without the object address)."""
+    last = message.strip().splitlines()[-1]
+    return re.sub(r"^\S+ \(0x[0-9a-f]+\): ", "", last).strip()
+
+
+def _read_vtk(path: Path, step: int) -> SnapshotData:
+    if path.suffix.lower() == ".vtu":
+        reader = _vtk.vtkXMLUnstructuredGridReader()
+    else:
+        reader = _vtk.vtkUnstructuredGridReader()
         reader.ReadAllScalarsOn()
         reader.ReadAllVectorsOn()
         reader.ReadAllFieldsOn()
-    errors = _VtkErrors(reader, reader.GetExecutive())
-    reader.Update()
-    grid = reader.GetOutput()
-    if errors.messages or grid is None or grid.GetNumberOfPoints() == 0:
-        detail = errors.messages[0].strip().splitlines()[-1] if errors.messages else "no points read"
-        raise InputError(f"{path}: not a readable, complete {suffix} unstructured grid ({detail.strip()})")
+    grid = _run_reader(reader, path)
     return SnapshotData(grid, _arrays(grid.GetPointData()), _arrays(grid.GetCellData()), _arrays(grid.GetFieldData()))
 
 
@@ -178,24 +182,32 @@ READERS: dict[str, Callable[[Path, int], SnapshotData]] = {
 def read_file(snapshot: Snapshot) -> SnapshotData:
     """Read one snapshot with the reader its suffix selects."""
     path = snapshot.path
-    if not path.is_file():
-        raise InputError(f"{path}: no such file")
+    _check_file(path)
     reader = READERS.get(path.suffix.lower(), _read_meshio)
     return reader(path, snapshot.step)
+
+
+def _check_file(path: Path, key: str | None = None) -> None:
+    where = f" (listed in {key})" if key else ""
+    if path.is_dir():
+        raise InputError(f"{path}: is a folder, not a file{where}")
+    if not path.is_file():
+        raise InputError(f"{path}: no such file{where}")
+    if not os.access(path, os.R_OK):
+        raise InputError(f"{path}: not readable (permission denied){where}")
 
 
 def expand_files(files: str | Sequence[str], base: Path, key: str = "data.files") -> list[Snapshot]:
     """Snapshots of a glob or list of files relative to ``base``; an XDMF file expands to its steps."""
     if isinstance(files, str):
-        pattern = files if Path(files).is_absolute() else str(base / files)
+        pattern = files if Path(files).is_absolute() else os.path.join(glob.escape(str(base)), files)
         paths = [Path(p) for p in sorted(glob.glob(pattern))]
         if not paths:
             raise InputError(f"{key}: the pattern {files!r} matches no file (relative to {base})")
     else:
         paths = [Path(f) if Path(f).is_absolute() else base / f for f in files]
         for p in paths:
-            if not p.is_file():
-                raise InputError(f"{p}: no such file (listed in {key})")
+            _check_file(p, key)
     snapshots: list[Snapshot] = []
     for p in paths:
         if p.suffix.lower() in _SERIES_SUFFIXES:
@@ -353,19 +365,8 @@ class Series:
 def _read_field_only(snap: Snapshot) -> SnapshotData:
     """Read a file for its FieldData only (VTK XML: arrays switched off, so the cost is the topology)."""
     if snap.path.suffix.lower() == ".vtu":
-        if not snap.path.is_file():
-            raise InputError(f"{snap.path}: no such file")
-        reader = _vtk.vtkXMLUnstructuredGridReader()
-        reader.SetFileName(str(snap.path))
-        errors = _VtkErrors(reader, reader.GetExecutive())
-        reader.UpdateInformation()
-        reader.GetPointDataArraySelection().DisableAllArrays()
-        reader.GetCellDataArraySelection().DisableAllArrays()
-        reader.Update()
-        grid = reader.GetOutput()
-        if errors.messages or grid is None or grid.GetNumberOfPoints() == 0:
-            detail = errors.messages[0].strip().splitlines()[-1] if errors.messages else "no points read"
-            raise InputError(f"{snap.path}: not a readable, complete .vtu unstructured grid ({detail.strip()})")
+        _check_file(snap.path)
+        grid = _run_reader(_vtk.vtkXMLUnstructuredGridReader(), snap.path, arrays=False)
         return SnapshotData(grid, {}, {}, _arrays(grid.GetFieldData()))
     return read_file(snap)
 
