@@ -139,40 +139,16 @@ def check(recipe: Path = typer.Argument(..., help="Recipe file (YAML).")) -> Non
 
 
 @app.command()
-def inspect(files: List[Path] = typer.Argument(..., help="Mesh or series files.")) -> None:
+def inspect(files: List[Path] = typer.Argument(..., help="Mesh, series or output (.vtp) files.")) -> None:
     """Print time steps, arrays (association, components, ranges), bounds and cell types of FILES."""
-    import numpy as np
-
-    from .mesh import Mesh
-    from .series import Snapshot, expand_files, read_file
+    from .series import describe, expand_files, read_file
 
     with _errors():
         con = _console()
         for f in files:
             for snap in expand_files([str(f)], Path.cwd(), key="FILE"):
-                data = read_file(snap)
-                mesh = Mesh(data.grid)
-                con.print(f"{snap.label}")
-                if data.time is not None:
-                    con.print(f"  time      {data.time:g}")
-                b = mesh.bounds
-                con.print(f"  bounds    x {b[0,0]:g} .. {b[0,1]:g}  y {b[1,0]:g} .. {b[1,1]:g}  z {b[2,0]:g} .. {b[2,1]:g}")
-                types = ", ".join(f"{n} {k}" for k, n in mesh.cell_type_counts().items())
-                con.print(f"  mesh      {mesh.n_points} points, {mesh.n_cells} cells ({types})")
-                for assoc, arrays in (("point", data.point), ("cell", data.cell), ("field", data.field)):
-                    for name, a in arrays.items():
-                        a = np.asarray(a)
-                        comps = 1 if a.ndim == 1 else a.shape[1]
-                        if a.size and np.issubdtype(a.dtype, np.number):
-                            finite = a[np.isfinite(a)] if np.issubdtype(a.dtype, np.floating) else a
-                            rng = f"{finite.min():g} .. {finite.max():g}" if finite.size else "all NaN"
-                            if comps > 1 and a.size:
-                                mag = np.linalg.norm(a.reshape(len(a), -1), axis=1)
-                                mag = mag[np.isfinite(mag)]
-                                rng += f" (magnitude {mag.min():g} .. {mag.max():g})" if mag.size else ""
-                        else:
-                            rng = ""
-                        con.print(f"  {assoc:<6} {name:<16} {comps} comp  {a.dtype}  {rng}")
+                for line in describe(snap, read_file(snap)):
+                    con.print(line)
 
 
 @app.command()

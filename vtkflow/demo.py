@@ -25,7 +25,7 @@ import os
 import re
 import sys
 import time as _time
-import uuid
+
 from pathlib import Path
 
 import numpy as np
@@ -34,6 +34,8 @@ from scipy.spatial import Delaunay
 from vtkmodules.util.numpy_support import numpy_to_vtk
 from vtkmodules.vtkCommonDataModel import vtkDataObject, vtkUnstructuredGrid
 from vtkmodules.vtkIOXML import vtkXMLPolyDataWriter, vtkXMLUnstructuredGridWriter, vtkXMLWriter
+
+from .output import atomic_path
 
 __all__ = [
     "U_INF",
@@ -450,37 +452,21 @@ def _cell_centres(grid: pv.UnstructuredGrid) -> np.ndarray:
     return centres
 
 
-def _temporary_path(path: Path) -> Path:
-    """A fresh hidden ``*.tmp`` name next to ``path`` (same folder, so os.replace is atomic)."""
-    return path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
-
-
 def _write_atomically(writer: vtkXMLWriter, data: vtkDataObject, path: Path) -> None:
-    """Write ``data`` with ``writer`` (binary, zlib) to a temporary file next to ``path``, then rename."""
-    tmp = _temporary_path(path)
-    try:
+    """Write ``data`` with ``writer`` (binary, zlib) under a temporary name next to ``path``, then rename."""
+    with atomic_path(path) as tmp:
         writer.SetInputData(data)
         writer.SetFileName(str(tmp))
         writer.SetDataModeToBinary()
         writer.SetCompressorTypeToZLib()
-        if writer.Write() != 1 or writer.GetErrorCode() != 0 or not tmp.is_file():
+        if writer.Write() != 1 or writer.GetErrorCode() != 0:
             raise OSError(f"VTK could not write {path}")
-        os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
 
 
 def _write_text_atomically(text: str, path: Path) -> None:
-    """Write ``text`` to a temporary file next to ``path``, then rename."""
-    tmp = _temporary_path(path)
-    try:
-        with open(tmp, "x", encoding="utf-8") as handle:
-            handle.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
+    """Write ``text`` under a temporary name next to ``path``, then rename."""
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
 
 
 def _cell_counts(grid: pv.UnstructuredGrid) -> dict[str, int]:

@@ -274,12 +274,16 @@ class LineKind(NamedTuple):
 
     particles: bool  #: advected particles (True) or streamlines of the frozen field (False)
     needs_every: bool  #: the recipe must give ``every``
+    arrays: tuple[str, ...]  #: point arrays of its output files
     description: str
 
 
+PARTICLE_ARRAYS = ("velocity", "speed", "particle_id", "release_time", "age", "status", "time")
+STREAMLINE_ARRAYS = ("velocity", "speed", "release_point", "arc_length", "status")
+
 LINE_KINDS: dict[str, LineKind] = {
-    "pathline": LineKind(True, False, "path of each released particle up to the frame time"),
-    "streakline": LineKind(True, True, "particles released from each point, joined oldest first"),
-    "timeline": LineKind(True, True, "particles released at one instant, joined in release-point order"),
-    "streamline": LineKind(False, False, "curve tangent to the velocity frozen at the frame time"),
+    "pathline": LineKind(True, False, PARTICLE_ARRAYS, "path of each released particle up to the frame time"),
+    "streakline": LineKind(True, True, PARTICLE_ARRAYS, "particles released from each point, joined oldest first"),
+    "timeline": LineKind(True, True, PARTICLE_ARRAYS, "particles released at one instant, joined in release-point order"),
+    "streamline": LineKind(False, False, STREAMLINE_ARRAYS, "curve tangent to the velocity frozen at the frame time"),
 }

@@ -22,7 +22,7 @@ import scipy.sparse as sp
 from . import _vtk
 from ._vtk import numpy_to_vtk, vtk_to_numpy
 
-__all__ = ["Mesh", "CELL_TYPE_NAMES"]
+__all__ = ["Mesh", "CELL_TYPE_NAMES", "cell_types"]
 
 #: Names of the VTK cell types vtkflow reports.
 CELL_TYPE_NAMES = {
@@ -64,7 +64,7 @@ class Mesh:
         cells = topo.GetCells()
         self.offsets = vtk_to_numpy(cells.GetOffsetsArray()).astype(np.int64)
         self.connectivity = vtk_to_numpy(cells.GetConnectivityArray()).astype(np.int64)
-        self.cell_types = _cell_types(topo)
+        self.cell_types = cell_types(topo)
         self._cell_of_entry = np.repeat(np.arange(self.n_cells), np.diff(self.offsets))
         self.cell_size = self._cell_sizes()
         self.point_size = np.full(self.n_points, np.inf)
@@ -91,7 +91,7 @@ class Mesh:
         conn = vtk_to_numpy(cells.GetConnectivityArray())
         if conn.shape != self.connectivity.shape or not np.array_equal(conn, self.connectivity):
             return False
-        if not np.array_equal(_cell_types(grid), self.cell_types):
+        if not np.array_equal(cell_types(grid), self.cell_types):
             return False
         pts = vtk_to_numpy(grid.GetPoints().GetData())
         return bool(np.array_equal(pts, self.points))
@@ -163,7 +163,7 @@ class Mesh:
         return size
 
 
-def _cell_types(grid: Any) -> np.ndarray:
+def cell_types(grid: Any) -> np.ndarray:
     """Cell type of every cell (VTK >= 9.6 returns the array from ``GetCellTypes()``; older VTK from
     ``GetCellTypesArray()``)."""
     try:

@@ -24,6 +24,16 @@ __all__ = ["polylines", "write_vtp", "read_vtp", "atomic_path", "write_json", "f
 TMP_SUFFIX = ".part"
 
 
+def _file_mode() -> int:
+    """Mode of new files under the process umask (``mkstemp`` alone would make them owner-only)."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
+FILE_MODE = _file_mode()
+
+
 def frame_path(output: Path, entry: str, index: int, suffix: str = ".vtp") -> Path:
     """``<output>/<entry>/<entry>_<NNNN><suffix>``, ``NNNN`` counting frames from 0 within the entry."""
     return output / entry / f"{entry}_{index:04d}{suffix}"
@@ -40,6 +50,7 @@ def atomic_path(path: Path) -> Iterator[Path]:
     os.close(fd)
     try:
         yield Path(tmp)
+        os.chmod(tmp, FILE_MODE)
         os.replace(tmp, path)
     except OSError as exc:
         if isinstance(exc, OutputError):

@@ -200,6 +200,18 @@ class Camera(Strict):
     up: Vec3 = (0.0, 0.0, 1.0)
     angle: PositiveFloat = Field(30.0, lt=180.0, description="vertical view angle in degrees")
 
+    @model_validator(mode="after")
+    def _geometry(self) -> "Camera":
+        import numpy as np
+
+        view = np.subtract(self.focus, self.position)
+        if not np.linalg.norm(view) > 0:
+            raise ValueError("position and focus must differ")
+        up = np.asarray(self.up, dtype=float)
+        if not np.linalg.norm(np.cross(view, up)) > 1e-9 * np.linalg.norm(view) * np.linalg.norm(up):
+            raise ValueError("up must not be zero or parallel to the viewing direction (focus - position)")
+        return self
+
 
 class RenderEntry(Strict):
     """One image per frame of the first listed line entry, coloured by one array over a fixed range."""
@@ -256,6 +268,12 @@ class Recipe(Strict):
             for line in render.lines:
                 if line not in self.lines:
                     raise ValueError(_unknown("line entry", line, self.lines, f"renders.{name}.lines"))
+                arrays = LINE_KINDS[self.lines[line].kind].arrays
+                if render.color_by not in arrays:
+                    raise ValueError(
+                        f"renders.{name}.color_by: {self.lines[line].kind} files of '{line}' have no array"
+                        f" {render.color_by!r}; choose one of {', '.join(arrays)}"
+                    )
         return self
 
 

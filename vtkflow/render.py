@@ -51,7 +51,7 @@ from vtkmodules.vtkRenderingOpenGL2 import vtkEGLRenderWindow
 
 from .colormaps import sample
 from ._vtk import captured_messages
-from .errors import InputError, OutputError, RecipeError, VtkflowError
+from .errors import InputError, OutputError, VtkflowError
 from .output import atomic_path
 from .recipe import RenderEntry
 
@@ -203,12 +203,7 @@ def _place_camera(renderer: vtkRenderer, spec: RenderEntry, bounds: np.ndarray) 
     if spec.camera is not None:
         position = np.asarray(spec.camera.position, dtype=float)
         focus = np.asarray(spec.camera.focus, dtype=float)
-        up = np.asarray(spec.camera.up, dtype=float)
-        view = focus - position
-        if np.linalg.norm(view) == 0.0:
-            raise RecipeError("render camera: 'position' and 'focus' are the same point")
-        if np.linalg.norm(np.cross(view / np.linalg.norm(view), up)) < 1e-6 * max(np.linalg.norm(up), 1e-300):
-            raise RecipeError("render camera: 'up' is parallel to the viewing direction (position to focus)")
+        up = np.asarray(spec.camera.up, dtype=float)  # recipe.Camera has checked it against the view
         camera.SetPosition(*position)
         camera.SetFocalPoint(*focus)
         camera.SetViewUp(*up)

@@ -24,7 +24,7 @@ from ._vtk import vtk_to_numpy
 from .errors import InputError
 from .mesh import Mesh
 
-__all__ = ["Series", "Snapshot", "SnapshotData", "READERS", "read_file", "expand_files"]
+__all__ = ["Series", "Snapshot", "SnapshotData", "READERS", "read_file", "expand_files", "describe"]
 
 
 @dataclass
@@ -76,7 +76,8 @@ def _run_reader(reader: Any, path: Path, arrays: bool = True) -> Any:
     errors = [m for m in messages if m.startswith("ERROR")]
     if errors or grid is None or grid.GetNumberOfPoints() == 0:
         detail = _vtk_detail(errors[0]) if errors else "no points read"
-        raise InputError(f"{path}: not a readable, complete {path.suffix} unstructured grid ({detail})")
+        what = "polygonal data" if path.suffix.lower() == ".vtp" else "unstructured grid"
+        raise InputError(f"{path}: not a readable, complete {path.suffix} {what} ({detail})")
     return grid
 
 
@@ -148,6 +149,11 @@ class _XdmfSeries:
         )
 
 
+def _read_vtp(path: Path, step: int) -> SnapshotData:
+    grid = _run_reader(_vtk.vtkXMLPolyDataReader(), path)
+    return SnapshotData(grid, _arrays(grid.GetPointData()), _arrays(grid.GetCellData()), _arrays(grid.GetFieldData()))
+
+
 def _read_xdmf(path: Path, step: int) -> SnapshotData:
     return _XdmfSeries.open(path).read(step)
 
@@ -174,6 +180,7 @@ _SERIES_SUFFIXES = {".xdmf", ".xmf"}
 READERS: dict[str, Callable[[Path, int], SnapshotData]] = {
     ".vtu": _read_vtk,
     ".vtk": _read_vtk,
+    ".vtp": _read_vtp,  # for inspecting outputs; a series needs volume cells
     ".xdmf": _read_xdmf,
     ".xmf": _read_xdmf,
 }
@@ -241,6 +248,8 @@ class Series:
         self.snapshots = snapshots
         self.velocity_names = (velocity,) if isinstance(velocity, str) else tuple(velocity)
         first = read_file(snapshots[0])
+        if not first.grid.IsA("vtkUnstructuredGrid"):
+            raise InputError(f"{snapshots[0].label}: holds {first.grid.GetClassName()}, not a volume mesh (unstructured grid)")
         self.mesh = Mesh(first.grid)
         self.association = self._association(first, snapshots[0])
         self.times = self._times(times, first)
@@ -383,3 +392,47 @@ def _check_times(times: np.ndarray, snapshots: Sequence[Snapshot]) -> None:
             f"data.times: {what} snapshot times {times[i]:g} ({snapshots[i].label}) and {times[i + 1]:g}"
             f" ({snapshots[i + 1].label}); times must increase strictly"
         )
+
+
+def describe(snap: Snapshot, data: SnapshotData) -> list[str]:
+    """Lines that describe one snapshot: time, bounds, size and cell types, arrays with their ranges."""
+    from .mesh import CELL_TYPE_NAMES
+
+    grid = data.grid
+    lines = [snap.label]
+    if data.time is not None:
+        lines.append(f"  time      {data.time:g}")
+    b = np.array(grid.GetBounds()).reshape(3, 2)
+    lines.append(f"  bounds    x {b[0, 0]:g} .. {b[0, 1]:g}  y {b[1, 0]:g} .. {b[1, 1]:g}  z {b[2, 0]:g} .. {b[2, 1]:g}")
+    if grid.IsA("vtkPolyData"):
+        parts = {"vertices": grid.GetNumberOfVerts(), "polylines": grid.GetNumberOfLines(),
+                 "polygons": grid.GetNumberOfPolys(), "strips": grid.GetNumberOfStrips()}
+        names = ", ".join(f"{n} {k}" for k, n in parts.items() if n)
+    else:
+        from .mesh import cell_types
+
+        kinds, counts = np.unique(cell_types(grid), return_counts=True)
+        names = ", ".join(f"{c} {CELL_TYPE_NAMES.get(int(k), f'type {int(k)}')}" for k, c in zip(kinds, counts))
+    lines.append(f"  mesh      {grid.GetNumberOfPoints()} points, {grid.GetNumberOfCells()} cells ({names or 'none'})")
+    for assoc, arrays in (("point", data.point), ("cell", data.cell), ("field", data.field)):
+        for name, a in arrays.items():
+            lines.append(f"  {assoc:<6} {name:<16} {_array_summary(np.asarray(a))}")
+    return lines
+
+
+def _array_summary(a: np.ndarray) -> str:
+    comps = 1 if a.ndim == 1 else int(np.prod(a.shape[1:]))
+    text = f"{comps} comp  {a.dtype}"
+    if a.size == 0 or not np.issubdtype(a.dtype, np.number):
+        return text
+    finite = a[np.isfinite(a)] if np.issubdtype(a.dtype, np.floating) else a
+    if finite.size == 0:
+        return text + "  all NaN"
+    text += f"  {finite.min():g} .. {finite.max():g}"
+    n_nan = int(a.size - finite.size)
+    if comps > 1:
+        mag = np.linalg.norm(a.reshape(len(a), -1), axis=1)
+        mag = mag[np.isfinite(mag)]
+        if mag.size:
+            text += f" (magnitude {mag.min():g} .. {mag.max():g})"
+    return text + (f"  {n_nan} NaN values" if n_nan else "")

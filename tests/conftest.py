@@ -1,0 +1,38 @@
+"""Shared pytest fixtures."""
+
+from __future__ import annotations
+
+from typing import Iterator
+
+import pytest
+
+
+@pytest.fixture
+def vtk_errors_fail() -> Iterator[list[str]]:
+    """Fail the test if VTK reports an error or a warning while it runs (opt-in).
+
+    VTK reports problems through its output window, which invokes ``ErrorEvent``/``WarningEvent``
+    on itself before printing; an observer there sees every message that was not already handled by
+    an observer on the object that raised it (vtkflow's readers trap their own errors that way). The
+    fixture yields the list of messages; a test that provokes a message on purpose clears the list.
+
+    Use it for a whole module with ``pytestmark = pytest.mark.usefixtures("vtk_errors_fail")``.
+    """
+    from vtkmodules.util.misc import calldata_type
+    from vtkmodules.vtkCommonCore import VTK_STRING, vtkCommand, vtkOutputWindow
+
+    messages: list[str] = []
+
+    @calldata_type(VTK_STRING)
+    def on_message(_obj: object, event: str, text: object) -> None:
+        messages.append(f"{event}: {str(text).strip()}")
+
+    window = vtkOutputWindow.GetInstance()
+    tags = [window.AddObserver(event, on_message) for event in (vtkCommand.ErrorEvent, vtkCommand.WarningEvent)]
+    try:
+        yield messages
+    finally:
+        for tag in tags:
+            window.RemoveObserver(tag)
+    if messages:
+        pytest.fail("VTK reported during the test:\n" + "\n".join(messages), pytrace=False)
