@@ -7,16 +7,17 @@ from typing import Iterator
 import pytest
 
 
-@pytest.fixture
+@pytest.fixture(autouse=True)
 def vtk_errors_fail() -> Iterator[list[str]]:
-    """Fail the test if VTK reports an error or a warning while it runs (opt-in).
+    """Fail the test if VTK reports an error or a warning while it runs (every test).
 
     VTK reports problems through its output window, which invokes ``ErrorEvent``/``WarningEvent``
     on itself before printing; an observer there sees every message that was not already handled by
     an observer on the object that raised it (vtkflow's readers trap their own errors that way). The
     fixture yields the list of messages; a test that provokes a message on purpose clears the list.
 
-    Use it for a whole module with ``pytestmark = pytest.mark.usefixtures("vtk_errors_fail")``.
+    It applies to every test (autouse); a test that expects a message takes the fixture as an argument
+    and clears the list.
     """
     from vtkmodules.util.misc import calldata_type
     from vtkmodules.vtkCommonCore import VTK_STRING, vtkCommand, vtkOutputWindow

@@ -69,17 +69,24 @@ def run(
     with _errors():
         loaded = load_recipe(recipe)
         out = output.resolve() if output is not None else None
+        interactive = sys.stderr.isatty()
         bar = Progress(
-            TextColumn("{task.description:<14}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
-            transient=False, disable=not sys.stderr.isatty(), console=None,
+            TextColumn("{task.description:<22}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
+            disable=not interactive,
         )
         tasks: dict[str, int] = {}
+        reported: dict[str, int] = {}
 
         def progress(what: str, done: int, total: int) -> None:
-            stage = "frames" if what not in loaded.recipe.renders else "renders"
-            if stage not in tasks:
-                tasks[stage] = bar.add_task(stage, total=total)
-            bar.update(tasks[stage], completed=done, description=f"{stage}: {what}")
+            stage = "renders" if what in loaded.recipe.renders else "frames"
+            if interactive:
+                if stage not in tasks:
+                    tasks[stage] = bar.add_task(stage, total=total)
+                bar.update(tasks[stage], completed=done, description=f"{stage}: {what}")
+            elif done * 10 // total > reported.get(stage, 0) or done == total:
+                # logs of batch jobs: one line per tenth of the work
+                reported[stage] = done * 10 // total
+                typer.echo(f"{stage} {done}/{total} ({what})")
 
         with bar:
             manifest = run_recipe(loaded, out, progress=progress, render=not no_render)
