@@ -37,3 +37,27 @@ def vtk_errors_fail() -> Iterator[list[str]]:
             window.RemoveObserver(tag)
     if messages:
         pytest.fail("VTK reported during the test:\n" + "\n".join(messages), pytrace=False)
+
+
+_ACCURACY: list[tuple[str, float, float, str]] = []
+
+
+@pytest.fixture
+def accuracy():
+    """``accuracy(check, error, tolerance, note)`` records an analytic check's figures for the summary."""
+
+    def record(check: str, error: float, tolerance: float, note: str = "") -> None:
+        _ACCURACY.append((check, float(error), float(tolerance), note))
+
+    return record
+
+
+def pytest_terminal_summary(terminalreporter, exitstatus, config):  # noqa: ARG001
+    """Print the accuracy table of the analytic checks after the run."""
+    if not _ACCURACY:
+        return
+    tr = terminalreporter
+    tr.section("accuracy of the analytic checks")
+    tr.write_line(f"{'check':<58} {'error':>10} {'tolerance':>10}  note")
+    for check, error, tol, note in _ACCURACY:
+        tr.write_line(f"{check:<58} {error:>10.2e} {tol:>10.2e}  {note}")

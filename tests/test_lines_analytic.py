@@ -69,11 +69,12 @@ def _exact(frame):
 
 
 @pytest.mark.parametrize("entry", ["paths", "smoke", "marks"])
-def test_particle_lines_match_closed_form(oscillating_run, entry):
+def test_particle_lines_match_closed_form(oscillating_run, entry, accuracy):
     manifest, out = oscillating_run
     frame = last_frame(out, manifest, entry)
     assert frame.field_data["time"][0] == pytest.approx(T_END)
     err = np.abs(frame.points - _exact(frame)).max()
+    accuracy(f"oscillating uniform flow, {entry} ({manifest['entries'][entry]['kind']})", err, TOL_TIME, "h = 0.1")
     assert err <= TOL_TIME, f"{entry}: error {err:.2e} > {TOL_TIME:.2e} ({err / H:.1e} cells)"
 
 
@@ -114,14 +115,16 @@ def test_pathline_frames_grow_from_release(oscillating_run):
     np.testing.assert_allclose(age, last.point_data["time"] - last.point_data["release_time"], atol=1e-12)
 
 
-def test_streamline_is_straight(oscillating_run):
+def test_streamline_is_straight(oscillating_run, accuracy):
     manifest, out = oscillating_run
     frame = last_frame(out, manifest, "inst")
     d = np.array([U, V * np.sin(OMEGA * T_END), 0.0])
     d /= np.linalg.norm(d)
     rel = frame.points - np.array([0.3, -0.3, 0.0])
     # a frozen uniform field: the streamline is the straight line along u(T_END) (exact up to round-off)
-    assert np.abs(np.cross(rel, d)).max() < 1e-9
+    off = np.abs(np.cross(rel, d)).max()
+    accuracy("oscillating uniform flow, streamline off its straight line", off, 1e-9, "round-off")
+    assert off < 1e-9
     arc = frame.point_data["arc_length"]
     assert arc.min() < 0 < arc.max() and np.all(np.diff(arc) > 0)  # backward part reversed, then forward
     assert np.all(frame.point_data["release_point"] == 0)
@@ -145,7 +148,7 @@ def test_the_four_kinds_differ_in_unsteady_flow(oscillating_run):
 
 # ------------------------------------------------------------------------------------------ steady flows
 @pytest.mark.parametrize("kind", ["tetra", "hexahedron"])
-def test_steady_pathline_streakline_streamline_coincide(tmp_path, kind):
+def test_steady_pathline_streakline_streamline_coincide(tmp_path, kind, accuracy):
     """In steady flow the three curves through one release point are the same curve (common practice).
 
     The helix field is linear in space, so every cell type interpolates it exactly; what remains is the
@@ -168,6 +171,8 @@ lines:
     h = 0.2
     sagitta = (0.25 * h) ** 2 / 8
     tol = 2 * sagitta + 1e-6
+    gap = max(distance_to_polyline(streak, stream).max(), distance_to_polyline(path, stream).max())
+    accuracy(f"steady helix ({kind}), path/streak off the streamline", gap, tol, "h = 0.2")
     assert distance_to_polyline(streak, stream).max() < tol
     assert distance_to_polyline(path, stream).max() < tol
     # and all three lie on the exact helix through the release point: radius 0.5, z = 0.2 + 0.5 * angle
@@ -179,7 +184,7 @@ lines:
 
 
 @pytest.mark.parametrize("kind", ["tetra", "hexahedron"])
-def test_abc_flow_against_solve_ivp(tmp_path, kind):
+def test_abc_flow_against_solve_ivp(tmp_path, kind, accuracy):
     """ABC flow (Dombre et al. 1986, J. Fluid Mech. 167) pathlines against SciPy's DOP853 on the analytic field.
 
     Tolerance: linear/trilinear interpolation in a cell of size h errs by at most about |u''| h^2 / 8 in
@@ -205,10 +210,11 @@ lines:
         for s in seeds
     ])
     err = np.linalg.norm(ends - ref, axis=1).max()
+    accuracy(f"ABC flow ({kind}) vs solve_ivp DOP853, T = 0.25", err, 0.01 * 0.1, "h = 0.1")
     assert err < 0.01 * 0.1, f"{kind}: end-point error {err:.2e} ({err / 0.1:.1e} cells)"
 
 
-def test_abc_error_falls_with_cell_size(tmp_path):
+def test_abc_error_falls_with_cell_size(tmp_path, accuracy):
     """Second-order convergence of trilinear interpolation: halving h divides the error by about 4
     (interpolation error O(h^2), e.g. Burden & Faires thm 3.3 per direction). Ratio >= 3 accepted."""
     flow = abc()
@@ -220,10 +226,12 @@ def test_abc_error_falls_with_cell_size(tmp_path):
         manifest, out = run_case(tmp_path / f"n{n}", box_mesh((0, 0, 0), (2, 2, 2), (n, n, n), "hexahedron"), flow, [0.0, 0.25], body)
         frame = last_frame(out, manifest, "p")
         errs.append(np.linalg.norm(frame.points[-1] - ref))
+    accuracy("ABC flow (hexahedra) error at h = 0.25", errs[0], np.inf, "convergence")
+    accuracy("ABC flow (hexahedra) error at h = 0.125", errs[1], errs[0] / 3.0, f"ratio {errs[0] / errs[1]:.2f} (>= 3)")
     assert errs[0] / errs[1] > 3.0, errs
 
 
-def test_lamb_oseen_pathlines_are_circles(tmp_path):
+def test_lamb_oseen_pathlines_are_circles(tmp_path, accuracy):
     """A steady Lamb–Oseen vortex (Lamb 1932, Hydrodynamics §334a) moves particles on circles at the
     angular rate u_theta(r)/r.
 
@@ -242,17 +250,22 @@ def test_lamb_oseen_pathlines_are_circles(tmp_path):
     r = np.linspace(1e-3, 1.5, 200_001)
     u = gamma / (2 * np.pi * r) * (1 - np.exp(-(r**2) / rc**2))
     tol = np.abs(np.gradient(np.gradient(u, r), r)).max() * 0.08**2 / 8 * T
+    worst_r = worst_s = 0.0
     for i, line in enumerate(polylines_of(frame)):
         xy = frame.points[line][:, :2]
         radius = np.hypot(xy[:, 0], xy[:, 1])
         assert np.abs(radius - radii[i]).max() < tol, (radii[i], np.abs(radius - radii[i]).max(), tol)
         angle = np.unwrap(np.arctan2(xy[:, 1], xy[:, 0]))[-1]
         expected = lamb_oseen_omega(gamma, rc, radii[i]) * T
+        worst_r = max(worst_r, np.abs(radius - radii[i]).max())
+        worst_s = max(worst_s, abs(angle - expected) * radii[i])
         assert abs(angle - expected) * radii[i] < tol, (angle, expected, tol)
         assert expected * radii[i] > 10 * tol  # the particles travel far against the tolerance
+    accuracy("Lamb-Oseen vortex, radius drift of pathlines", worst_r, tol, "h = 0.08")
+    accuracy("Lamb-Oseen vortex, distance along the circle", worst_s, tol, "h = 0.08")
 
 
-def test_cell_data_gives_the_same_lines_as_point_data(tmp_path):
+def test_cell_data_gives_the_same_lines_as_point_data(tmp_path, accuracy):
     """Cell-centred velocity, averaged onto points, gives pathlines within interpolation error of the
     point-data run: averaging cell centres onto a point errs by O(h^2) inside and O(h) on the boundary;
     the particles stay inside, so the gap is bounded by about |u''| h^2 T (0.02 h accepted, h = 0.1)."""
@@ -266,4 +279,5 @@ def test_cell_data_gives_the_same_lines_as_point_data(tmp_path):
     ends_a = np.array([a.points[line[-1]] for line in polylines_of(a)])
     ends_b = np.array([b.points[line[-1]] for line in polylines_of(b)])
     gap = np.linalg.norm(ends_a - ends_b, axis=1).max()
+    accuracy("ABC flow, cell-centred vs point input (end points)", gap, 0.02 * 0.1, "h = 0.1")
     assert 0 < gap < 0.02 * 0.1, gap
