@@ -132,12 +132,12 @@ class FrozenField:
         return self.field(x, np.full(len(x), self.time))
 
     def __call__(self, x: np.ndarray, s: np.ndarray, idx: np.ndarray) -> Sample:
-        smp = self.velocity(x)
-        speed = np.linalg.norm(smp.v, axis=1)
-        slow = smp.inside & (smp.stop == 0) & ~(speed > self.floor)
-        stop = np.where(slow, int(Status.stalled), smp.stop)
-        unit = np.where(speed[:, None] > 0, smp.v / np.where(speed > 0, speed, 1.0)[:, None], 0.0)
-        return Sample(unit * self.sign[idx, None], smp.h, smp.inside, stop)
+        got = self.velocity(x)
+        speed = np.linalg.norm(got.v, axis=1)
+        slow = got.inside & (got.stop == 0) & ~(speed > self.floor)
+        stop = np.where(slow, int(Status.stalled), got.stop)
+        unit = np.where(speed[:, None] > 0, got.v / np.where(speed > 0, speed, 1.0)[:, None], 0.0)
+        return Sample(unit * self.sign[idx, None], got.h, got.inside, stop)
 
 
 @dataclass
@@ -164,10 +164,10 @@ def place(state: State, idx: np.ndarray, x: np.ndarray, t: np.ndarray, field: Sa
     """Put particles ``idx`` at ``x`` at times ``t`` and sample the field there (release)."""
     if idx.size == 0:
         return
-    smp = field(x, t, idx)
-    state.x[idx], state.t[idx], state.v[idx], state.h[idx] = x, t, smp.v, smp.h
-    status = np.where(smp.stop != 0, smp.stop, int(Status.active))
-    status[~smp.inside] = int(Status.exited)
+    got = field(x, t, idx)
+    state.x[idx], state.t[idx], state.v[idx], state.h[idx] = x, t, got.v, got.h
+    status = np.where(got.stop != 0, got.stop, int(Status.active))
+    status[~got.inside] = int(Status.exited)
     state.status[idx] = status
 
 
