@@ -181,3 +181,16 @@ def distance_to_polyline(points: np.ndarray, line: np.ndarray) -> np.ndarray:
     s = np.clip(((p - a) * ab).sum(axis=2) / L2, 0.0, 1.0)
     d = np.linalg.norm(p - (a + s[..., None] * ab), axis=2)
     return d.min(axis=1)
+
+
+def with_(recipe: dict, dotted: str, value) -> dict:
+    """A copy of a recipe dict with the key at ``dotted`` (e.g. ``lines.paths.stop``) set to ``value``."""
+    import copy
+
+    out = copy.deepcopy(recipe)
+    *parents, last = dotted.split(".")
+    node = out
+    for p in parents:
+        node = node[p]
+    node[last] = value
+    return out

@@ -30,7 +30,7 @@ from vtkmodules.util.numpy_support import vtk_to_numpy
 from vtkmodules.vtkCommonCore import vtkCommand, vtkDoubleArray
 from vtkmodules.vtkIOXML import vtkXMLPolyDataReader, vtkXMLUnstructuredGridReader, vtkXMLUnstructuredGridWriter
 
-from flows import box_mesh, oscillating, oscillating_position, write_series
+from flows import box_mesh, oscillating, oscillating_position, with_, write_series
 from vtkflow import _vtk
 from vtkflow.cli import app
 from vtkflow.errors import InputError, RecipeError, VtkflowError
@@ -113,16 +113,6 @@ def expect_both(folder: Path, recipe: Any, *needles: str, exc: type[BaseExceptio
     expect_error(["run", path], *needles, exc=exc)
     expect_error(["check", path], *needles, exc=exc)
 
-
-def with_(recipe: dict[str, Any], dotted: str, value: Any) -> dict[str, Any]:
-    """A copy of ``recipe`` with the key at ``dotted`` (e.g. ``lines.paths.stop``) set to ``value``."""
-    out = copy.deepcopy(recipe)
-    *parents, last = dotted.split(".")
-    node = out
-    for p in parents:
-        node = node[p]
-    node[last] = value
-    return out
 
 
 def read_back(path: Path) -> Any:

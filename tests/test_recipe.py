@@ -19,7 +19,7 @@ import yaml
 from vtkmodules.util.numpy_support import vtk_to_numpy
 from vtkmodules.vtkIOXML import vtkXMLPolyDataReader
 
-from flows import box_mesh, oscillating, write_series
+from flows import box_mesh, oscillating, with_, write_series
 from vtkflow.errors import RecipeError
 from vtkflow.lines import LINE_KINDS
 from vtkflow.recipe import LineEntry, Recipe, TimesSpec, json_schema, load_recipe, parse_recipe
@@ -68,15 +68,6 @@ FILES_FORMS = {"glob": "case/*.vtu", "list": ["case/a.vtu", "case/b.vtu"]}
 def example() -> dict[str, Any]:
     return yaml.safe_load(EXAMPLE)
 
-
-def with_(recipe: dict[str, Any], dotted: str, value: Any) -> dict[str, Any]:
-    out = copy.deepcopy(recipe)
-    *parents, last = dotted.split(".")
-    node = out
-    for p in parents:
-        node = node[p]
-    node[last] = value
-    return out
 
 
 def without(recipe: dict[str, Any], dotted: str) -> dict[str, Any]:
