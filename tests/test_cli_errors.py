@@ -382,6 +382,11 @@ def test_window_outside_snapshot_times(case: Path, key: str, value: float) -> No
     expect_both(case, recipe, f"lines.paths.{key}", f"{value:g}", "outside the snapshot times", "[0, 0.3]", exc=RecipeError)
 
 
+def test_missing_render_context_file(case: Path) -> None:
+    recipe = with_(base_recipe(), "renders", {"view": {"lines": ["paths"], "range": [0, 2], "context": ["wing.vtp"]}})
+    expect_both(case, recipe, "wing.vtp", "no such file", "renders.view.context.0", exc=InputError)
+
+
 def test_stop_before_start(case: Path) -> None:
     recipe = with_(with_(base_recipe(), "lines.paths.start", 0.2), "lines.paths.stop", 0.1)
     expect_both(case, recipe, "lines.paths", "before start", exc=RecipeError)

@@ -37,10 +37,6 @@ CELL_TYPE_NAMES = {
     42: "polyhedron",
 }
 
-#: Relative tolerance of point location, in units of the local cell size (common practice: small
-#: against the cell, large against round-off).
-LOCATE_TOLERANCE = 1e-9
-
 
 class Mesh:
     """Topology of a static unstructured mesh with its search and interpolation structures.

@@ -17,7 +17,7 @@ from typing import Any, Callable, Optional, Sequence
 import numpy as np
 
 from . import __version__
-from .errors import OutputError, RecipeError
+from .errors import InputError, OutputError, RecipeError
 from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, release_instants
 from .output import frame_path, write_json, write_vtp
 from .particles import TimeField
@@ -116,6 +116,11 @@ def plan(loaded: LoadedRecipe, series: Series) -> Plan:
         instants = release_instants(start, stop, entry.every) if particles else np.zeros(0)
         pts, inside = result.releases[entry.release]
         result.entries.append(EntryPlan(name, entry, start, stop, frames, instants, pts, inside))
+    for name, render in recipe.renders.items():
+        for i, context in enumerate(render.context):
+            path = loaded.base / context
+            if not path.is_file():
+                raise InputError(f"{path}: no such file (renders.{name}.context.{i})")
     return result
 
 

@@ -15,7 +15,7 @@ import os
 import re
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable, Iterator, Sequence
+from typing import Any, Callable, Sequence
 
 import numpy as np
 
@@ -364,11 +364,6 @@ class Series:
     def nan_count(self, k: int) -> int:
         """Number of points whose velocity has a NaN in snapshot ``k``."""
         return int(np.count_nonzero(~np.isfinite(self.velocity(k)).all(axis=1)))
-
-    def iter_velocity(self) -> Iterator[tuple[float, np.ndarray]]:
-        """Stream ``(time, point velocity)`` over all snapshots."""
-        for k in range(len(self)):
-            yield self.read(k)
 
 
 def _read_field_only(snap: Snapshot) -> SnapshotData:
