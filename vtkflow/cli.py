@@ -122,6 +122,9 @@ def check(recipe: Path = typer.Argument(..., help="Recipe file (YAML).")) -> Non
         mesh = series.mesh
         types = ", ".join(f"{n} {k}" for k, n in mesh.cell_type_counts().items())
         con.print(f"mesh      {mesh.n_points} points, {mesh.n_cells} cells ({types})")
+        for assoc, names in series.arrays.items():
+            if names:
+                con.print(f"arrays    {assoc}: {', '.join(names)}")
         names = " ".join(series.velocity_names)
         con.print(f"velocity  {names} ({series.association} data)")
         nan_total = 0

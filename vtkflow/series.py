@@ -251,6 +251,8 @@ class Series:
         if not first.grid.IsA("vtkUnstructuredGrid"):
             raise InputError(f"{snapshots[0].label}: holds {first.grid.GetClassName()}, not a volume mesh (unstructured grid)")
         self.mesh = Mesh(first.grid)
+        #: Names of the arrays of the first snapshot, by association (``point``, ``cell``, ``field``).
+        self.arrays = {"point": list(first.point), "cell": list(first.cell), "field": list(first.field)}
         self.association = self._association(first, snapshots[0])
         self.times = self._times(times, first)
         self._cache: dict[int, np.ndarray] = {0: self._velocity_of(first, snapshots[0])}
