@@ -10,6 +10,7 @@ Readers are chosen by file suffix from :data:`READERS`: VTK's own readers for ``
 
 from __future__ import annotations
 
+import functools
 import glob
 import os
 import re
@@ -114,9 +115,11 @@ def _cell_arrays(cell_data: dict[str, list[np.ndarray]]) -> dict[str, np.ndarray
 
 
 class _XdmfSeries:
-    """An XDMF time series read with meshio: topology once, then one step at a time."""
+    """An XDMF time series read with meshio: topology once, then one step at a time.
 
-    _cache: dict[Path, "_XdmfSeries"] = {}
+    Open series are kept by (path, modification time) in a small bounded cache, so that listing the
+    steps and reading them share one reader and one topology.
+    """
 
     def __init__(self, path: Path) -> None:
         import meshio
@@ -127,16 +130,9 @@ class _XdmfSeries:
         self.grid = _meshio_grid(points, cells)
         self.n_steps = int(self._reader.num_steps)
 
-    @classmethod
-    def open(cls, path: Path) -> "_XdmfSeries":
-        if path not in cls._cache:
-            try:
-                cls._cache[path] = cls(path)
-            except InputError:
-                raise
-            except Exception as exc:  # meshio raises many kinds on bad input
-                raise InputError(f"{path}: not a readable XDMF time series ({exc})") from None
-        return cls._cache[path]
+    @staticmethod
+    def open(path: Path) -> "_XdmfSeries":
+        return _open_xdmf(path.resolve(), path.stat().st_mtime_ns)
 
     def read(self, step: int) -> SnapshotData:
         t, point_data, cell_data = self._reader.read_data(step)
@@ -147,6 +143,14 @@ class _XdmfSeries:
             {},
             float(t),
         )
+
+
+@functools.lru_cache(maxsize=4)
+def _open_xdmf(path: Path, mtime_ns: int) -> _XdmfSeries:
+    try:
+        return _XdmfSeries(path)
+    except Exception as exc:  # meshio and h5py raise many kinds on bad input
+        raise InputError(f"{path}: not a readable XDMF time series ({exc})") from None
 
 
 def _read_vtp(path: Path, step: int) -> SnapshotData:
