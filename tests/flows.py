@@ -21,14 +21,19 @@ Flow = Callable[[np.ndarray, float], np.ndarray]
 def box_mesh(low: Sequence[float], high: Sequence[float], cells: Sequence[int], kind: str = "tetra") -> pv.UnstructuredGrid:
     """A box cut into ``cells`` hexahedra per direction, optionally split into tetrahedra.
 
-    kind : 'hexahedron' or 'tetra' (VTK's 5/6-tet split, conforming)
+    kind : 'hexahedron', 'voxel' or 'tetra' (VTK's conforming split of the cubes)
     """
     low, high = np.asarray(low, float), np.asarray(high, float)
     n = np.asarray(cells)
     grid = pv.ImageData(dimensions=tuple(n + 1), spacing=tuple((high - low) / n), origin=tuple(low))
     if kind == "tetra":
         return grid.triangulate().cast_to_unstructured_grid()
-    return grid.cast_to_unstructured_grid()
+    voxels = grid.cast_to_unstructured_grid()
+    if kind == "voxel":
+        return voxels
+    # a voxel lists its corners x fastest (0, 1, 2, 3 = (0,0), (1,0), (0,1), (1,1)); a hexahedron goes round
+    conn = np.asarray(voxels.cells_dict[pv.CellType.VOXEL])[:, [0, 1, 3, 2, 4, 5, 7, 6]]
+    return pv.UnstructuredGrid({pv.CellType.HEXAHEDRON: conn}, np.asarray(voxels.points))
 
 
 def write_series(

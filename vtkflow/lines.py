@@ -39,7 +39,7 @@ def release_instants(start: float, stop: float, every: Optional[float]) -> np.nd
     if every is None:
         return np.array([start])
     n = int(np.floor((stop - start) / every * (1.0 + TIME_RTOL) + TIME_RTOL)) + 1
-    return start + every * np.arange(n)
+    return np.minimum(start + every * np.arange(n), stop)  # round-off never puts the last one past stop
 
 
 def snap_times(values: np.ndarray, targets: np.ndarray, window: tuple[float, float]) -> np.ndarray:

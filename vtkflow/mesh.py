@@ -28,14 +28,22 @@ __all__ = ["Mesh", "CELL_TYPE_NAMES", "cell_types"]
 CELL_TYPE_NAMES = {
     1: "vertex",
     3: "line",
+    4: "polyline",
     5: "triangle",
+    8: "pixel",
     9: "quad",
+    11: "voxel",
     10: "tetra",
     12: "hexahedron",
     13: "wedge",
     14: "pyramid",
     42: "polyhedron",
 }
+
+
+#: Point-location tolerance, relative to the mesh's bounding-box diagonal: round-off scale, so that
+#: points on faces, edges and vertices are inside and points beyond them are not.
+LOCATE_TOLERANCE = 1e-10
 
 
 class Mesh:
@@ -191,6 +199,11 @@ class _Probe:
         probe.PassCellArraysOff()
         probe.PassFieldArraysOff()
         probe.SetValidPointMaskArrayName("inside")
+        # VTK's automatic tolerance (about 1e-3 of a cell) would count points that far outside the mesh
+        # as inside; an absolute tolerance at round-off scale keeps points on faces and edges inside only.
+        bounds = np.array(grid.GetBounds()).reshape(3, 2)
+        probe.ComputeToleranceOff()
+        probe.SetTolerance(LOCATE_TOLERANCE * max(float(np.linalg.norm(bounds[:, 1] - bounds[:, 0])), 1e-300))
         self._probe = probe
         self._keep: list[Any] = []
         self.has_source = False

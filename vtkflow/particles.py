@@ -34,16 +34,21 @@ __all__ = [
     "MIN_STEP",
     "BISECTIONS",
     "STALL_SPEED",
+    "MAX_GROWTH",
 ]
 
 #: Shortest step, in local cell sizes, tried before a particle whose step leaves the mesh is declared exited.
 MIN_STEP = 1e-3
-#: Bisection steps that place an exiting particle on the boundary (precision: one cell / 2**BISECTIONS).
+#: Bisection steps that place an exiting particle on the boundary (one cell / 2**BISECTIONS, on top of VTK's
+#: cell containment tolerance: about 1e-3 of a cell for tetrahedra, wedges and pyramids, 1e-6 for hexahedra).
 BISECTIONS = 40
-#: Streamlines stop where the speed falls below this fraction of the largest speed of the frozen field.
+#: Streamlines stop where the speed falls below this fraction of the largest speed at their seeds.
 STALL_SPEED = 1e-6
-#: Safety bound on integration loop iterations in one call of :func:`advance`.
-MAX_ITERATIONS = 200_000
+#: A step is redone when the speed met along it exceeds the one it was sized for by this factor.
+MAX_GROWTH = 2.0
+#: Guard against a runaway loop in one call of :func:`advance` (every iteration advances, shortens or
+#: stops each particle, so reaching it means a bug, not a hard case).
+MAX_ITERATIONS = 10_000_000
 
 
 class Status(IntEnum):
@@ -100,8 +105,8 @@ class TimeField:
     def __call__(self, x: np.ndarray, t: np.ndarray, idx: Optional[np.ndarray] = None) -> Sample:
         values, inside = self.mesh.sample(x)
         a = self.weight(t)[:, None]
-        v = (1.0 - a) * values[:, 0:3] + a * values[:, 3:6]
-        # A NaN in a snapshot whose weight is zero still poisons the product (0 * NaN): test each one used.
+        # A snapshot with zero weight takes no part, not even through 0 * NaN.
+        v = np.where(a < 1.0, (1.0 - a) * values[:, 0:3], 0.0) + np.where(a > 0.0, a * values[:, 3:6], 0.0)
         nan0 = ~np.isfinite(values[:, 0:3]).all(axis=1) & (a[:, 0] < 1.0)
         nan1 = ~np.isfinite(values[:, 3:6]).all(axis=1) & (a[:, 0] > 0.0)
         bad = inside & (nan0 | nan1)
@@ -198,10 +203,11 @@ def advance(
     -----
     Classical fourth-order Runge–Kutta (Kutta 1901; e.g. Hairer, Nørsett & Wanner 1993, *Solving Ordinary
     Differential Equations I*, Springer, table 1.2 of section II.1). Each particle's step is
-    ``min(step * h / |u|, t_end - t)``, halved on leaving the mesh.
+    ``min(step * h / |u|, t_end - t)``; it is redone shorter when the speed met along it exceeds
+    ``MAX_GROWTH`` times the one it was sized for, and halved when a stage leaves the mesh.
     """
     active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
-    shrink = np.ones(state.t.size)
+    cap = np.full(state.t.size, np.inf)  # per-particle limit on dt after a rejected step
     for _ in range(max_iterations):
         if active.size == 0:
             return
@@ -209,7 +215,7 @@ def advance(
         speed = np.linalg.norm(k1, axis=1)
         remaining = t_end - t
         with np.errstate(divide="ignore", invalid="ignore"):
-            dt = np.where(speed > 0, step * h * shrink[active] / speed, np.inf)
+            dt = np.minimum(np.where(speed > 0, step * h / speed, np.inf), cap[active])
         last = dt >= remaining
         dt = np.where(last, remaining, dt)
 
@@ -221,36 +227,52 @@ def advance(
         sn = field(xn, tn, active)
 
         inside = s2.inside & s3.inside & s4.inside & sn.inside
+        # the speed met along the step; a step that outran the bound (the flow sped up) is redone
+        vmax = np.max([speed] + [np.linalg.norm(sk.v, axis=1) for sk in (s2, s3, s4)], axis=0)
+        too_long = inside & (dt * vmax > MAX_GROWTH * step * h)
         stage_stop = np.maximum.reduce([s2.stop, s3.stop, s4.stop]) * inside
-        ok = inside & (stage_stop == 0)
+        ok = inside & ~too_long & (stage_stop == 0)
 
         # accepted steps (the end point may itself carry a stop code: the particle stops there)
         acc = active[ok]
         state.x[acc], state.t[acc], state.v[acc], state.h[acc] = xn[ok], tn[ok], sn.v[ok], sn.h[ok]
-        shrink[acc] = 1.0
+        cap[acc] = np.inf
         end_stop = sn.stop[ok]
         state.status[acc[end_stop != 0]] = end_stop[end_stop != 0]
         if record is not None and acc.size:
             record(acc, xn[ok], tn[ok], sn.v[ok])
 
         # a stage met a stop code (NaN, stall) inside the mesh: stop where the particle is
-        halted = inside & (stage_stop != 0)
+        halted = inside & ~too_long & (stage_stop != 0)
         state.status[active[halted]] = stage_stop[halted]
+        cap[active[too_long]] = step * h[too_long] / vmax[too_long]
 
         # stages left the mesh: shorter step, or on the boundary if the step is already tiny
         out = ~inside
-        tiny = out & (dt * speed <= MIN_STEP * h)
-        shrink[active[out & ~tiny]] *= 0.5
+        tiny = out & (dt * vmax <= MIN_STEP * h)
+        cap[active[out & ~tiny]] = 0.5 * dt[out & ~tiny]
         if tiny.any():
-            _exit(state, active[tiny], field, record)
+            # mean velocity over the stages that stayed inside, with RK4's weights: the exit direction
+            w = [(1.0, np.ones(len(active), bool), k1), (2.0, s2.inside, s2.v), (2.0, s3.inside, s3.v), (1.0, s4.inside, s4.v)]
+            total = sum(wi * ins for wi, ins, _ in w)
+            mean = sum((wi * ins)[:, None] * vi for wi, ins, vi in w) / total[:, None]
+            _exit(state, active[tiny], mean[tiny], t_end, field, record)
 
         active = active[(state.status[active] == Status.active) & (state.t[active] < t_end)]
     raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} iterations")
 
 
-def _exit(state: State, idx: np.ndarray, field: Sampler, record: Optional[Recorder]) -> None:
-    """Move particles ``idx`` to where their velocity direction crosses the boundary and mark them exited."""
-    x, t, v, h = state.x[idx], state.t[idx], state.v[idx], state.h[idx]
+def _exit(
+    state: State, idx: np.ndarray, mean: np.ndarray, t_end: float, field: Sampler, record: Optional[Recorder]
+) -> None:
+    """Move particles ``idx`` to where they cross the boundary and mark them exited.
+
+    The search runs from the particle along ``mean``, its mean velocity over the stages of the last tried
+    step that stayed inside (or the velocity at the particle where that is zero), one local cell size
+    ahead, by bisection; the exit time is the distance over that speed, at most ``t_end``.
+    """
+    x, t, h = state.x[idx], state.t[idx], state.h[idx]
+    v = np.where(np.linalg.norm(mean, axis=1)[:, None] > 0, mean, state.v[idx])
     speed = np.linalg.norm(v, axis=1)
     direction = np.where(speed[:, None] > 0, v / np.where(speed > 0, speed, 1.0)[:, None], 0.0)
     reach = h  # search one local cell ahead
@@ -264,12 +286,14 @@ def _exit(state: State, idx: np.ndarray, field: Sampler, record: Optional[Record
     dist = np.where(end_out, lo * reach, 0.0)
     xe = x + dist[:, None] * direction
     with np.errstate(divide="ignore", invalid="ignore"):
-        te = t + np.where(speed > 0, dist / speed, 0.0)
+        te = np.minimum(t + np.where(speed > 0, dist / speed, 0.0), t_end)
+    got = field(xe, te, idx)
     state.x[idx], state.t[idx] = xe, te
+    state.v[idx] = np.where(got.inside[:, None], got.v, state.v[idx])
     state.status[idx] = int(Status.exited)
     moved = dist > 0
     if record is not None and moved.any():
-        record(idx[moved], xe[moved], te[moved], v[moved])
+        record(idx[moved], xe[moved], te[moved], state.v[idx[moved]])
 
 
 # ------------------------------------------------------------------------------------------ streamlines

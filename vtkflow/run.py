@@ -54,8 +54,8 @@ def frame_times(start: float, stop: float, snapshot_times: np.ndarray, spec: Any
         outside = times[(times < start - eps) | (times > stop + eps)]
         if outside.size:
             raise RecipeError(f"{key}.frames: frame time {outside[0]:g} lies outside the window [{start:g}, {stop:g}]")
-    # merge times closer than eps (e.g. stop == last snapshot time)
-    times = np.sort(times)
+    # merge times closer than eps (e.g. stop == last snapshot time); round-off never leaves the window
+    times = np.clip(np.sort(times), start, stop)
     keep = np.concatenate([[True], np.diff(times) > eps])
     return times[keep]
 
@@ -210,7 +210,7 @@ def run_recipe(
     for k in range(n_intervals):
         k1 = min(k + 1, len(series) - 1)
         t0, t1 = float(times[k]), float(times[k1])
-        if t0 > last_needed:
+        if k > 0 and t0 >= last_needed:  # every window has ended: later snapshots are not read
             break
         u0, u1 = series.velocity(k), series.velocity(k1)
         for j, u in ((k, u0), (k1, u1)):

@@ -338,8 +338,14 @@ class Series:
                         f"{snap.label}: array {self.velocity_names[0]!r} has shape {v.shape}; data.velocity needs 3 components"
                     )
             else:
-                cols = [np.asarray(arrays[n], dtype=np.float64).ravel() for n in self.velocity_names]
-                v = np.stack(cols, axis=1)
+                cols = [np.asarray(arrays[n], dtype=np.float64) for n in self.velocity_names]
+                for n, c in zip(self.velocity_names, cols):
+                    if c.ndim != 1 and not (c.ndim == 2 and c.shape[1] == 1):
+                        raise InputError(
+                            f"{snap.label}: array {n!r} has shape {c.shape}; each of the three data.velocity"
+                            " arrays needs one component"
+                        )
+                v = np.stack([c.reshape(-1) for c in cols], axis=1)
         except KeyError as exc:
             raise InputError(f"{snap.label}: no {self.association} array {exc.args[0]!r} for data.velocity") from None
         if len(v) != expected:
