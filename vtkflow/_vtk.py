@@ -10,11 +10,8 @@ from typing import Iterator
 
 from vtkmodules.util.numpy_support import numpy_to_vtk, vtk_to_numpy  # noqa: F401
 from vtkmodules.vtkCommonCore import (  # noqa: F401
-    vtkCommand,
-    vtkDoubleArray,
     vtkIdTypeArray,
     vtkLogger,
-    vtkObject,
     vtkOutputWindow,
     vtkPoints,
     vtkStringArray,
@@ -23,18 +20,16 @@ from vtkmodules.vtkCommonCore import (  # noqa: F401
 from vtkmodules.vtkCommonDataModel import (  # noqa: F401
     vtkCellArray,
     vtkPolyData,
+    vtkStaticCellLocator,
     vtkUnstructuredGrid,
 )
-from vtkmodules.vtkCommonExecutionModel import vtkStreamingDemandDrivenPipeline  # noqa: F401
 from vtkmodules.vtkFiltersCore import vtkProbeFilter  # noqa: F401
 from vtkmodules.vtkFiltersVerdict import vtkCellSizeFilter  # noqa: F401
-from vtkmodules.vtkCommonDataModel import vtkStaticCellLocator  # noqa: F401
 from vtkmodules.vtkIOLegacy import vtkUnstructuredGridReader  # noqa: F401
 from vtkmodules.vtkIOXML import (  # noqa: F401
     vtkXMLPolyDataReader,
     vtkXMLPolyDataWriter,
     vtkXMLUnstructuredGridReader,
-    vtkXMLUnstructuredGridWriter,
 )
 
 
