@@ -2,8 +2,9 @@
 
 :class:`Mesh` wraps a ``vtkUnstructuredGrid`` that holds topology only. It builds, once:
 
-* a static cell locator, used by a reusable probe that interpolates point arrays at arbitrary points with
-  each cell's own interpolation functions (linear on tetrahedra, trilinear on hexahedra, ...);
+* a conforming tetrahedral decomposition with face neighbours and a bin grid (:mod:`vtkflow.tetmesh`),
+  used by the numba point locator of :mod:`vtkflow.kernels` to interpolate point arrays linearly in the
+  tetrahedra (exact for fields linear in space, on every cell type);
 * the local cell size at each point (the smallest ``|volume|**(1/3)`` of the cells that use the point), which
   bounds integration steps;
 * a sparse cell-to-point averaging matrix (each point gets the plain mean of the cells that use it, as VTK's
@@ -20,7 +21,9 @@ import numpy as np
 import scipy.sparse as sp
 
 from . import _vtk
-from ._vtk import numpy_to_vtk, vtk_to_numpy
+from ._vtk import vtk_to_numpy
+from .kernels import Locator
+from .tetmesh import decompose
 
 __all__ = ["Mesh", "CELL_TYPE_NAMES", "cell_types"]
 
@@ -39,11 +42,6 @@ CELL_TYPE_NAMES = {
     14: "pyramid",
     42: "polyhedron",
 }
-
-
-#: Point-location tolerance, relative to the mesh's bounding-box diagonal: round-off scale, so that
-#: points on faces, edges and vertices are inside and points beyond them are not.
-LOCATE_TOLERANCE = 1e-10
 
 
 class Mesh:
@@ -74,7 +72,9 @@ class Mesh:
         self.point_size = np.full(self.n_points, np.inf)
         np.minimum.at(self.point_size, self.connectivity, self.cell_size[self._cell_of_entry])
         self._to_point: sp.csr_matrix | None = None
-        self._probe = _Probe(topo)
+        self.tetmesh = decompose(self.points, self.offsets, self.connectivity, self.cell_types)
+        self.locator = Locator(self.tetmesh)
+        self._values: np.ndarray | None = None
 
     # ------------------------------------------------------------------------------------- summaries
     @property
@@ -124,27 +124,35 @@ class Mesh:
     # -------------------------------------------------------------------------------------- probing
     def set_point_data(self, data: np.ndarray) -> None:
         """Set the point array (``(n_points, k)``) that :meth:`sample` interpolates."""
-        self._probe.set_source(np.ascontiguousarray(data, dtype=np.float64))
+        data = np.asarray(data, dtype=np.float64).reshape(self.n_points, -1)
+        self._values = np.ascontiguousarray(self.tetmesh.extend(data))
 
-    def sample(self, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def sample(self, points: np.ndarray, hints: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Interpolate the array set by :meth:`set_point_data` at ``points``.
 
         Parameters
         ----------
         points : (N, 3) ndarray
+        hints : (N,) ndarray of int, optional
+            Tetrahedra to start the point location walk from (see :meth:`locate`).
 
         Returns
         -------
         values : (N, k) ndarray of float64 (zeros where not found)
         inside : (N,) ndarray of bool, False for points outside the mesh
         """
-        return self._probe(points)
+        if self._values is None:
+            raise RuntimeError("Mesh.sample needs set_point_data first")
+        tets, bary = self.locator.locate(points, hints)
+        return self.locator.interpolate(tets, bary, self._values), tets >= 0
+
+    def locate(self, points: np.ndarray, hints: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Containing tetrahedron of the decomposition (-1 outside) and barycentric coordinates."""
+        return self.locator.locate(points, hints)
 
     def contains(self, points: np.ndarray) -> np.ndarray:
-        """Which of ``points`` (``(N, 3)``) lie in the mesh (within the locator's tolerance)."""
-        if not self._probe.has_source:
-            self.set_point_data(np.zeros((self.n_points, 1)))
-        return self.sample(points)[1]
+        """Which of ``points`` (``(N, 3)``) lie in the mesh (faces, edges and vertices included)."""
+        return self.locator.locate(points)[0] >= 0
 
     def _cell_sizes(self) -> np.ndarray:
         f = _vtk.vtkCellSizeFilter()
@@ -177,57 +185,3 @@ def cell_types(grid: Any) -> np.ndarray:
     if not hasattr(arr, "GetNumberOfTuples"):
         arr = grid.GetCellTypesArray()
     return vtk_to_numpy(arr).astype(np.uint8)
-
-
-class _Probe:
-    """A ``vtkProbeFilter`` over a fixed mesh with a prebuilt static cell locator, reused for every call."""
-
-    def __init__(self, grid: Any) -> None:
-        self._source = _vtk.vtkUnstructuredGrid()
-        self._source.ShallowCopy(grid)
-        locator = _vtk.vtkStaticCellLocator()
-        locator.SetDataSet(self._source)
-        locator.BuildLocator()
-        locator.SetUseExistingSearchStructure(True)
-        self._locator = locator
-        self._input = _vtk.vtkPolyData()
-        probe = _vtk.vtkProbeFilter()
-        probe.SetInputData(self._input)
-        probe.SetSourceData(self._source)
-        probe.SetCellLocator(locator)
-        probe.PassPointArraysOff()
-        probe.PassCellArraysOff()
-        probe.PassFieldArraysOff()
-        probe.SetValidPointMaskArrayName("inside")
-        # VTK's automatic tolerance (about 1e-3 of a cell) would count points that far outside the mesh
-        # as inside; an absolute tolerance at round-off scale keeps points on faces and edges inside only.
-        bounds = np.array(grid.GetBounds()).reshape(3, 2)
-        probe.ComputeToleranceOff()
-        probe.SetTolerance(LOCATE_TOLERANCE * max(float(np.linalg.norm(bounds[:, 1] - bounds[:, 0])), 1e-300))
-        self._probe = probe
-        self._keep: list[Any] = []
-        self.has_source = False
-
-    def set_source(self, data: np.ndarray) -> None:
-        arr = numpy_to_vtk(data.reshape(len(data), -1), deep=True)
-        arr.SetName("values")
-        pd = self._source.GetPointData()
-        pd.Initialize()
-        pd.AddArray(arr)
-        self.has_source = True
-
-    def __call__(self, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        points = np.ascontiguousarray(points, dtype=np.float64).reshape(-1, 3)
-        if len(points) == 0:
-            k = self._source.GetPointData().GetArray("values").GetNumberOfComponents()
-            return np.zeros((0, k)), np.zeros(0, dtype=bool)
-        vpts = _vtk.vtkPoints()
-        vpts.SetData(numpy_to_vtk(points, deep=False))
-        self._keep = [points]
-        self._input.SetPoints(vpts)
-        self._input.Modified()
-        self._probe.Update()
-        out = self._probe.GetOutput().GetPointData()
-        values = vtk_to_numpy(out.GetArray("values")).reshape(len(points), -1).copy()
-        inside = vtk_to_numpy(out.GetArray("inside")).astype(bool)
-        return values, inside

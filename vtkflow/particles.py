@@ -2,7 +2,8 @@
 
 The velocity between two snapshots ``t_k < t_k+1`` is linear in time,
 ``u(x, t) = (1 - a) u_k(x) + a u_k+1(x)`` with ``a = (t - t_k) / (t_k+1 - t_k)``, and each snapshot is
-interpolated in space with the cell's own interpolation functions (:meth:`vtkflow.mesh.Mesh.sample`).
+interpolated in space linearly in the tetrahedra of the mesh's conforming decomposition
+(:meth:`vtkflow.mesh.Mesh.sample`).
 Steps never straddle a snapshot time: the driver advances particles interval by interval.
 
 Every particle carries its own time, so particles released at different instants advance together.
@@ -39,8 +40,7 @@ __all__ = [
 
 #: Shortest step, in local cell sizes, tried before a particle whose step leaves the mesh is declared exited.
 MIN_STEP = 1e-3
-#: Bisection steps that place an exiting particle on the boundary (one cell / 2**BISECTIONS, on top of VTK's
-#: cell containment tolerance: about 1e-3 of a cell for tetrahedra, wedges and pyramids, 1e-6 for hexahedra).
+#: Bisection steps that place an exiting particle on the boundary (precision: one cell / 2**BISECTIONS).
 BISECTIONS = 40
 #: Streamlines stop where the speed falls below this fraction of the largest speed at their seeds.
 STALL_SPEED = 1e-6

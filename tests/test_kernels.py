@@ -1,0 +1,162 @@
+"""The tetrahedral decomposition and the numba locator against slow, obvious twins.
+
+The twins are brute force: every tetrahedron tested for every point with NumPy (barycentric coordinates
+from ``numpy.linalg.solve``), and VTK's own cell volumes for the decomposition.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import pyvista as pv
+
+from flows import box_mesh
+from vtkflow.kernels import BARY_TOL, Locator
+from vtkflow.mesh import Mesh
+from vtkflow.tetmesh import decompose, face_neighbours
+
+
+def naive_locate(points: np.ndarray, tets: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """(N, M) barycentric coordinates of every point in every tetrahedron, by linear solves."""
+    p = points[tets]
+    edges = np.stack([p[:, 1] - p[:, 0], p[:, 2] - p[:, 0], p[:, 3] - p[:, 0]], axis=2)  # (M, 3, 3)
+    rhs = x[:, None, :] - p[None, :, 0]  # (N, M, 3)
+    lam = np.linalg.solve(np.broadcast_to(edges, rhs.shape[:2] + (3, 3)), rhs[..., None])[..., 0]
+    return np.concatenate([1 - lam.sum(axis=2, keepdims=True), lam], axis=2)
+
+
+def mixed_grid() -> pv.UnstructuredGrid:
+    """Hexahedra, wedges, pyramids and tetrahedra sharing faces conformingly: a 2 x 2 x 2 block of cubes
+    where one cube is cut into 2 wedges, one into 6 pyramids... kept simple: cubes of each kind meet only
+    across faces their cuts agree on (every cut uses the smallest-index rule)."""
+    hexes = box_mesh((0, 0, 0), (3, 2, 2), (3, 2, 2), "hexahedron")
+    pts = np.asarray(hexes.points)
+    conn = np.asarray(hexes.cells_dict[pv.CellType.HEXAHEDRON])
+    cells, types = [], []
+    extra = [pts]
+    for k, h in enumerate(conn):
+        kind = k % 4
+        if kind == 0:
+            cells.append(h)
+            types.append(pv.CellType.HEXAHEDRON)
+        elif kind == 1:  # two wedges through the diagonal plane (0, 2, 6, 4)
+            cells += [h[[0, 1, 2, 4, 5, 6]], h[[0, 2, 3, 4, 6, 7]]]
+            types += [pv.CellType.WEDGE] * 2
+        else:  # six pyramids to the cube centre
+            centre = len(np.concatenate(extra))
+            extra.append(pts[h].mean(axis=0, keepdims=True))
+            faces = [[0, 3, 2, 1], [4, 5, 6, 7], [0, 1, 5, 4], [1, 2, 6, 5], [2, 3, 7, 6], [3, 0, 4, 7]]
+            for f in faces:
+                cells.append(np.append(h[f], centre))
+                types.append(pv.CellType.PYRAMID)
+    flat = np.concatenate([np.append(len(c), c) for c in cells])
+    return pv.UnstructuredGrid(flat, np.array(types, np.uint8), np.concatenate(extra))
+
+
+@pytest.mark.parametrize("make", [lambda: box_mesh((0, 0, 0), (1, 1, 1), (3, 3, 3), "tetra"), mixed_grid])
+def test_decomposition_keeps_volume_and_orientation(make):
+    """Tetrahedra are positively oriented and their volumes add up to each cell's volume from VTK's
+    vtkCellSizeFilter (reference library). Tolerance: round-off."""
+    grid = make()
+    mesh = Mesh(grid)
+    tm = mesh.tetmesh
+    p = tm.points[tm.tets]
+    vol = np.einsum("ij,ij->i", np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), p[:, 3] - p[:, 0]) / 6
+    assert vol.min() > 0
+    ref = np.abs(np.asarray(grid.compute_cell_sizes(length=False, area=False)["Volume"]))
+    np.testing.assert_allclose(np.bincount(tm.parent, vol, minlength=grid.n_cells), ref, rtol=1e-12, atol=1e-15)
+
+
+def test_decomposition_is_conforming():
+    """Every interior face has exactly one neighbour; the faces without one are exactly the boundary
+    (the outer surface area equals the box's, 2 (3*2 + 3*2 + 2*2) = 32)."""
+    grid = mixed_grid()
+    tm = Mesh(grid).tetmesh
+    nbr = face_neighbours(tm.tets)
+    opposite = np.array([[1, 2, 3], [0, 2, 3], [0, 1, 3], [0, 1, 2]])
+    t, f = np.nonzero(nbr < 0)
+    tri = tm.points[tm.tets[t][np.arange(len(t))[:, None], opposite[f]]]
+    area = 0.5 * np.linalg.norm(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]), axis=1)
+    assert area.sum() == pytest.approx(32.0, rel=1e-12)
+    # symmetric: t's neighbour across a face has t as a neighbour
+    tt, ff = np.nonzero(nbr >= 0)
+    assert np.all(np.any(nbr[nbr[tt, ff]] == tt[:, None], axis=1))
+
+
+def test_locate_matches_brute_force_including_faces_edges_and_vertices():
+    grid = mixed_grid()
+    mesh = Mesh(grid)
+    tm = mesh.tetmesh
+    rng = np.random.default_rng(5)
+    inside = rng.uniform(0, 1, (300, 3)) * [3, 2, 2]
+    on_vertices = tm.points[rng.integers(0, len(tm.points), 40)]
+    edges = tm.tets[rng.integers(0, len(tm.tets), 40)]
+    on_edges = 0.5 * (tm.points[edges[:, 0]] + tm.points[edges[:, 1]])
+    faces = tm.tets[rng.integers(0, len(tm.tets), 40)]
+    on_faces = tm.points[faces[:, :3]].mean(axis=1)
+    outside = np.array([[-0.1, 0.5, 0.5], [3.0 + 1e-9, 1, 1], [1, 1, 2.5], [1.5, -1e-10, 1.0]])
+    x = np.concatenate([inside, on_vertices, on_edges, on_faces, outside])
+    tets, bary = mesh.locate(x)
+    lam = naive_locate(tm.points, tm.tets, x)
+    contained = (lam >= -BARY_TOL).all(axis=2)  # (N, M)
+    assert np.array_equal(tets >= 0, contained.any(axis=1))
+    found = tets >= 0
+    assert np.all(contained[np.flatnonzero(found), tets[found]])  # a containing tetrahedron
+    np.testing.assert_allclose(bary[found], lam[np.flatnonzero(found), tets[found]], atol=1e-12)
+    assert not found[-len(outside):].any()
+
+
+def test_walking_from_any_hint_finds_the_same_point():
+    """The walk (Löhner & Ambrosiano 1990) from random starting tetrahedra reaches a containing one."""
+    mesh = Mesh(box_mesh((0, 0, 0), (1, 1, 1), (6, 6, 6), "tetra"))
+    rng = np.random.default_rng(2)
+    x = rng.uniform(0, 1, (500, 3))
+    hints = rng.integers(0, len(mesh.tetmesh.tets), len(x))
+    a, bary_a = mesh.locate(x)
+    b, bary_b = mesh.locate(x, hints)
+    assert (a >= 0).all() and (b >= 0).all()
+    # both contain the point (they may differ only for points on shared faces)
+    lam = naive_locate(mesh.tetmesh.points, mesh.tetmesh.tets[b], x)
+    assert np.all(lam[np.arange(len(x)), np.arange(len(x))] >= -BARY_TOL)
+
+
+def test_linear_field_exact_and_threads_agree():
+    """A linear field is reproduced exactly (round-off) through hexahedra, wedges and pyramids, and the
+    result is bitwise the same with 1 and 2 threads (each point writes only its own row)."""
+    import numba
+
+    mesh = Mesh(mixed_grid())
+    a = np.array([[0.3, -1.2, 0.5], [2.0, 0.1, -0.7], [0.4, 0.9, 1.1]])
+    mesh.set_point_data(mesh.points @ a.T + 0.25)
+    x = np.random.default_rng(9).uniform(0, 1, (2000, 3)) * [3, 2, 2]
+    numba.set_num_threads(1)
+    one, ins1 = mesh.sample(x)
+    numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+    two, ins2 = mesh.sample(x)
+    assert ins1.all() and np.array_equal(one, two)
+    np.testing.assert_allclose(one, x @ a.T + 0.25, atol=1e-12)
+
+
+def test_sliver_and_degenerate_tetrahedra():
+    """A flat (zero-volume) tetrahedron never contains a point; a sliver 1e-9 thick still locates
+    points inside it and rejects points just above it (brute-force twin as reference)."""
+    pts = np.array([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0.3, 0.3, 1e-9], [0.5, 0.5, 0.0], [1, 1, 1.0]], float)
+    conn = np.array([0, 1, 2, 3, 1, 2, 4, 5])  # a sliver, and a flat one (vertices 1, 2, 4 collinear)
+    loc = Locator(decompose(pts, np.array([0, 4, 8]), conn, np.array([10, 10], np.uint8)))
+    assert np.isfinite(loc.tinv[0]).all() and not np.isfinite(loc.tinv[1]).all()
+    x = np.array([[0.2, 0.2, 1e-10], [0.2, 0.2, 2e-9], [0.6, 0.45, 1e-3]])
+    tets, _ = loc.locate(x)
+    lam = naive_locate(pts, loc.tm.tets[:1], x)[:, 0]
+    assert tets.tolist() == [0, -1, -1]
+    assert (lam[0] >= -BARY_TOL).all() and not (lam[1] >= -BARY_TOL).all()
+
+
+def test_nan_velocity_interpolates_to_nan():
+    """NaN values in a tetrahedron's vertices make the interpolated value NaN (the engine then stops
+    the particle with status nan)."""
+    mesh = Mesh(box_mesh((0, 0, 0), (1, 1, 1), (2, 2, 2), "tetra"))
+    v = np.ones((mesh.n_points, 3))
+    v[mesh.points[:, 0] > 0.75] = np.nan
+    mesh.set_point_data(v)
+    values, inside = mesh.sample(np.array([[0.1, 0.5, 0.5], [0.9, 0.5, 0.5]]))
+    assert inside.all() and np.isfinite(values[0]).all() and np.isnan(values[1]).all()
