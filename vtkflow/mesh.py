@@ -127,6 +127,13 @@ class Mesh:
         data = np.asarray(data, dtype=np.float64).reshape(self.n_points, -1)
         self._values = np.ascontiguousarray(self.tetmesh.extend(data))
 
+    @property
+    def values(self) -> np.ndarray:
+        """The point array set by :meth:`set_point_data`, extended to the decomposition's added points."""
+        if self._values is None:
+            raise RuntimeError("Mesh.values needs set_point_data first")
+        return self._values
+
     def sample(self, points: np.ndarray, hints: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Interpolate the array set by :meth:`set_point_data` at ``points``.
 

@@ -30,6 +30,7 @@ __all__ = [
     "TimeField",
     "FrozenField",
     "advance",
+    "advance_numpy",
     "trace_streamlines",
     "StreamlineSet",
     "MIN_STEP",
@@ -44,6 +45,8 @@ MIN_STEP = 1e-3
 BISECTIONS = 40
 #: Streamlines stop where the speed falls below this fraction of the largest speed at their seeds.
 STALL_SPEED = 1e-6
+#: Accepted steps per particle per call of the numba engine (its record buffers are this long).
+CHUNK_STEPS = 64
 #: A step is redone when the speed met along it exceeds the one it was sized for by this factor.
 MAX_GROWTH = 2.0
 #: Guard against a runaway loop in one call of :func:`advance` (every iteration advances, shortens or
@@ -96,6 +99,16 @@ class TimeField:
         self.t0, self.t1 = float(t0), float(t1)
         self.mesh.set_point_data(np.hstack([u0, u1, self.mesh.point_size[:, None]]))
 
+    def kernel_args(self, time: Optional[float] = None, floor: float = 0.0) -> tuple:
+        """The plain arrays the numba engine needs: ``(mesh tuple, field tuple)``; with ``time``, the
+        frozen unit-tangent field at that time (streamlines)."""
+        loc = self.mesh.locator
+        b = loc.bins
+        mesh = (loc.p0, loc.tinv, loc.nbr, loc.conn, b.origin, b.spacing, b.dims, b.start, b.items)
+        frozen = time is not None
+        field = (self.mesh.values, self.t0, self.t1, frozen, float(time or 0.0), float(floor))
+        return mesh, field
+
     def weight(self, t: np.ndarray) -> np.ndarray:
         """Interpolation weight ``a`` of the later snapshot at times ``t``."""
         if self.t1 == self.t0:
@@ -132,6 +145,10 @@ class FrozenField:
     def __init__(self, field: TimeField, time: float, sign: np.ndarray, floor: float) -> None:
         self.field, self.time, self.sign, self.floor = field, float(time), np.asarray(sign, float), float(floor)
 
+    def kernel_args(self) -> tuple:
+        """See :meth:`TimeField.kernel_args`."""
+        return self.field.kernel_args(self.time, self.floor)
+
     def velocity(self, x: np.ndarray) -> Sample:
         """The velocity itself (not normalised) at ``x``."""
         return self.field(x, np.full(len(x), self.time))
@@ -154,11 +171,17 @@ class State:
     v: np.ndarray  # (N, 3)
     h: np.ndarray  # (N,)
     status: np.ndarray  # (N,) int8
+    cell: np.ndarray  # (N,) int64: last tetrahedron, where point location starts its walk (-1: none)
 
     @classmethod
     def empty(cls, n: int) -> "State":
         return cls(
-            np.zeros((n, 3)), np.zeros(n), np.zeros((n, 3)), np.ones(n), np.full(n, int(Status.pending), np.int8)
+            np.zeros((n, 3)),
+            np.zeros(n),
+            np.zeros((n, 3)),
+            np.ones(n),
+            np.full(n, int(Status.pending), np.int8),
+            np.full(n, -1, np.int64),
         )
 
 
@@ -182,9 +205,50 @@ def advance(
     field: Sampler,
     step: float,
     record: Optional[Recorder] = None,
+    engine: str = "numba",
     max_iterations: int = MAX_ITERATIONS,
 ) -> None:
     """Advance every active particle whose time is below ``t_end`` to ``t_end`` with classical RK4.
+
+    The work is done by the numba engine (:mod:`vtkflow.integrate`) for a :class:`TimeField` or
+    :class:`FrozenField`, and by its NumPy twin :func:`advance_numpy` for any other sampler or with
+    ``engine="numpy"``; both follow the same rules (see :func:`advance_numpy`).
+    """
+    if engine == "numpy" or not hasattr(field, "kernel_args"):
+        advance_numpy(state, t_end, field, step, record, max_iterations)
+        return
+    from .integrate import advance_particles
+
+    mesh, args = field.kernel_args()
+    signs = getattr(field, "sign", None)
+    params = (MIN_STEP, MAX_GROWTH)
+    for _ in range(max_iterations):
+        active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
+        if active.size == 0:
+            return
+        x, t, v, h = state.x[active], state.t[active], state.v[active], state.h[active]
+        cell, status = state.cell[active], state.status[active]
+        sg = np.ones(active.size) if signs is None else np.ascontiguousarray(signs[active], dtype=np.float64)
+        rec_x, rec_t, rec_v, counts = advance_particles(
+            x, t, v, h, cell, status, sg, t_end, step, CHUNK_STEPS, mesh, args, params
+        )
+        state.x[active], state.t[active], state.v[active], state.h[active] = x, t, v, h
+        state.cell[active], state.status[active] = cell, status
+        if record is not None and counts.any():
+            valid = np.arange(CHUNK_STEPS)[None, :] < counts[:, None]
+            record(np.repeat(active, counts), rec_x[valid], rec_t[valid], rec_v[valid])
+    raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} rounds")
+
+
+def advance_numpy(
+    state: State,
+    t_end: float,
+    field: Sampler,
+    step: float,
+    record: Optional[Recorder] = None,
+    max_iterations: int = MAX_ITERATIONS,
+) -> None:
+    """The NumPy twin of the numba engine: every active particle to ``t_end`` with classical RK4.
 
     Parameters
     ----------
