@@ -25,7 +25,7 @@ from numba import njit, prange
 
 from .kernels import BARY_TOL, _bary, _locate
 
-__all__ = ["advance_particles", "ACTIVE", "EXITED", "STALLED", "NAN"]
+__all__ = ["advance_particles", "TABLEAUS", "ACTIVE", "EXITED", "STALLED", "NAN", "BARY_TOL"]
 
 # status values (the same as vtkflow.particles.Status)
 ACTIVE, EXITED, STALLED, NAN = 0, 1, 2, 3
@@ -111,22 +111,52 @@ def _ray_exit(x, d, cell, mesh, bary):
     return -1.0
 
 
+# Butcher tableaus: rows of A (stage positions), b (the solution) and e (b minus the embedded solution,
+# for the error estimate; zero for RK4). The last stage of both is the sample at the new point, which
+# is also the first stage of the next step (FSAL).
+# Classical RK4 (Kutta 1901; Hairer, Nørsett & Wanner 1993, Solving ODEs I, table II.1.2).
+RK4_C = np.array([0.0, 0.5, 0.5, 1.0])
+RK4_A = np.array([[0.0, 0.0, 0.0, 0.0], [0.5, 0.0, 0.0, 0.0], [0.0, 0.5, 0.0, 0.0], [0.0, 0.0, 1.0, 0.0]])
+RK4_B = np.array([1.0 / 6.0, 1.0 / 3.0, 1.0 / 3.0, 1.0 / 6.0])
+RK4_E = np.zeros(5)
+# Dormand & Prince 1980, "A family of embedded Runge-Kutta formulae", J. Comput. Appl. Math. 6, table 2
+# (the 5(4) pair "DOPRI5"; coefficients as in Hairer, Nørsett & Wanner 1993, table II.5.2).
+DP_C = np.array([0.0, 1.0 / 5.0, 3.0 / 10.0, 4.0 / 5.0, 8.0 / 9.0, 1.0])
+DP_A = np.array([
+    [0.0, 0.0, 0.0, 0.0, 0.0, 0.0],
+    [1.0 / 5.0, 0.0, 0.0, 0.0, 0.0, 0.0],
+    [3.0 / 40.0, 9.0 / 40.0, 0.0, 0.0, 0.0, 0.0],
+    [44.0 / 45.0, -56.0 / 15.0, 32.0 / 9.0, 0.0, 0.0, 0.0],
+    [19372.0 / 6561.0, -25360.0 / 2187.0, 64448.0 / 6561.0, -212.0 / 729.0, 0.0, 0.0],
+    [9017.0 / 3168.0, -355.0 / 33.0, 46732.0 / 5247.0, 49.0 / 176.0, -5103.0 / 18656.0, 0.0],
+])
+DP_B = np.array([35.0 / 384.0, 0.0, 500.0 / 1113.0, 125.0 / 192.0, -2187.0 / 6784.0, 11.0 / 84.0])
+# b - b_hat for the six stages and for the FSAL stage at the new point
+DP_E = np.array([
+    71.0 / 57600.0, 0.0, -71.0 / 16695.0, 71.0 / 1920.0, -17253.0 / 339200.0, 22.0 / 525.0, -1.0 / 40.0,
+])
+#: Tableaus by integrator name: (c, A, b, e, adaptive).
+TABLEAUS = {"rk4": (RK4_C, RK4_A, RK4_B, RK4_E, False), "dopri5": (DP_C, DP_A, DP_B, DP_E, True)}
+
+
 @njit(cache=True, nogil=True)
-def _advance_one(i, X, T, V, H, C, S, sign, t_end, step, max_steps, mesh, field, params, rec_x, rec_t, rec_v):
-    min_step, max_growth = params
+def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t, rec_v):
+    min_step, max_growth, tol, rel_tol = params
+    cc, aa, bb, ee, adaptive = scheme
+    ns = bb.shape[0]
     x = X[i].copy()
     t = T[i]
     v = V[i].copy()
     h = H[i]
     cell = C[i]
-    cap = np.inf
     n = 0
-    k2 = np.empty(3)
-    k3 = np.empty(3)
-    k4 = np.empty(3)
+    k = np.empty((ns, 3))
     kn = np.empty(3)
     y = np.empty(3)
+    xn = np.empty(3)
     bary = np.empty(4)
+    cells = np.empty(ns, np.int64)
+    codes = np.empty(ns, np.int64)
     if cell < 0:  # no hint yet (just released): locate through the bins
         p0, tinv, nbr, conn, origin, spacing, dims, start, items = mesh
         cell = _locate(x, -1, p0, tinv, nbr, origin, spacing, dims, start, items, bary)
@@ -134,6 +164,7 @@ def _advance_one(i, X, T, V, H, C, S, sign, t_end, step, max_steps, mesh, field,
             S[i] = EXITED
             C[i] = cell
             return 0
+    cap = D[i] if adaptive and D[i] > 0.0 else np.inf  # the adaptive scheme's suggested step
     guard = 0
     while n < max_steps and S[i] == ACTIVE and t < t_end:
         guard += 1
@@ -145,44 +176,48 @@ def _advance_one(i, X, T, V, H, C, S, sign, t_end, step, max_steps, mesh, field,
         last = dt >= t_end - t
         if last:
             dt = t_end - t
-        for c in range(3):
-            y[c] = x[c] + 0.5 * dt * v[c]
-        c2, h2, s2 = _sample(y, t + 0.5 * dt, cell, mesh, field, sign, k2, bary)
-        c3, c4, s3, s4 = -1, -1, OUTSIDE, OUTSIDE
-        if c2 >= 0:
+        # stages
+        k[0] = v
+        cells[0] = cell
+        codes[0] = ACTIVE
+        n_in = 1
+        for j in range(1, ns):
             for c in range(3):
-                y[c] = x[c] + 0.5 * dt * k2[c]
-            c3, h3, s3 = _sample(y, t + 0.5 * dt, c2, mesh, field, sign, k3, bary)
-            if c3 >= 0:
-                for c in range(3):
-                    y[c] = x[c] + dt * k3[c]
-                c4, h4, s4 = _sample(y, t + dt, c3, mesh, field, sign, k4, bary)
-        inside = c2 >= 0 and c3 >= 0 and c4 >= 0
-        xn = np.empty(3)
+                acc = 0.0
+                for m in range(j):
+                    acc += aa[j, m] * k[m, c]
+                y[c] = x[c] + dt * acc
+            cj, hj, sj = _sample(y, t + cc[j] * dt, cells[j - 1], mesh, field, sign, k[j], bary)
+            cells[j] = cj
+            codes[j] = sj
+            if cj < 0:
+                break
+            n_in += 1
+        inside = n_in == ns
         cn, hn, sn = -1, 0.0, OUTSIDE
         tn = t_end if last else t + dt
         if inside:
             for c in range(3):
-                xn[c] = x[c] + dt / 6.0 * (v[c] + 2.0 * k2[c] + 2.0 * k3[c] + k4[c])
-            cn, hn, sn = _sample(xn, tn, c4, mesh, field, sign, kn, bary)
+                acc = 0.0
+                for m in range(ns):
+                    acc += bb[m] * k[m, c]
+                xn[c] = x[c] + dt * acc
+            cn, hn, sn = _sample(xn, tn, cells[ns - 1], mesh, field, sign, kn, bary)
             inside = cn >= 0
-        vmax = speed
-        for kv in (k2, k3, k4):
-            vmax = max(vmax, np.sqrt(kv[0] ** 2 + kv[1] ** 2 + kv[2] ** 2))
+        vmax = 0.0
+        for m in range(n_in):
+            vmax = max(vmax, np.sqrt(k[m, 0] ** 2 + k[m, 1] ** 2 + k[m, 2] ** 2))
         if not inside:
             if dt * vmax <= min_step * h:
                 # to the boundary along the mean velocity of the stages that stayed inside
-                wsum = 1.0
-                mean = v.copy()
-                if c2 >= 0:
-                    mean += 2.0 * k2
-                    wsum += 2.0
-                    if c3 >= 0:
-                        mean += 2.0 * k3
-                        wsum += 2.0
-                        if c4 >= 0:
-                            mean += k4
-                            wsum += 1.0
+                mean = np.zeros(3)
+                wsum = 0.0
+                for m in range(n_in):
+                    w = abs(bb[m]) if bb[m] != 0.0 else 0.0
+                    if m == 0:
+                        w = max(w, 1e-300)
+                    mean += w * k[m]
+                    wsum += w
                 mean /= wsum
                 ms = np.sqrt(mean[0] ** 2 + mean[1] ** 2 + mean[2] ** 2)
                 if ms > 0.0:
@@ -202,16 +237,34 @@ def _advance_one(i, X, T, V, H, C, S, sign, t_end, step, max_steps, mesh, field,
         if dt * vmax > max_growth * step * h:
             cap = step * h / vmax
             continue
-        stage_stop = max(max(s2, s3), s4)
+        stage_stop = 0
+        for m in range(ns):
+            stage_stop = max(stage_stop, codes[m])
         if stage_stop > 0:
             S[i] = stage_stop
             break
-        x = xn
+        if adaptive:
+            # error estimate in length units against tol (absolute) or rel_tol * h (relative to the cell)
+            err2 = 0.0
+            for c in range(3):
+                acc = ee[ns] * kn[c]
+                for m in range(ns):
+                    acc += ee[m] * k[m, c]
+                err2 += (dt * acc) ** 2
+            err = np.sqrt(err2)
+            allowed = tol if tol > 0.0 else rel_tol * h
+            factor = 5.0 if err == 0.0 else min(5.0, max(0.2, 0.9 * (allowed / err) ** 0.2))
+            if err > allowed:
+                cap = dt * factor
+                continue
+            cap = dt * factor
+        else:
+            cap = np.inf
+        x[:] = xn
         t = tn
         v[:] = kn
         h = hn
         cell = cn
-        cap = np.inf
         rec_x[i, n] = x
         rec_t[i, n] = t
         rec_v[i, n] = v
@@ -223,20 +276,23 @@ def _advance_one(i, X, T, V, H, C, S, sign, t_end, step, max_steps, mesh, field,
     V[i] = v
     H[i] = h
     C[i] = cell
+    if adaptive:
+        D[i] = cap
     return n
 
 
 @njit(cache=True, parallel=True)
-def _advance_many(rows, X, T, V, H, C, S, signs, t_end, step, max_steps, mesh, field, params, rec_x, rec_t, rec_v, counts):
-    for j in prange(rows.shape[0]):
+def _advance_many(X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t, rec_v, counts):
+    for j in prange(X.shape[0]):
         counts[j] = _advance_one(
-            j, X, T, V, H, C, S, signs[j], t_end, step, max_steps, mesh, field, params, rec_x, rec_t, rec_v
+            j, X, T, V, H, C, S, D, signs[j], t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t, rec_v
         )
 
 
-def advance_particles(x, t, v, h, cell, status, signs, t_end, step, max_steps, mesh, field, params):
+def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params, integrator="rk4"):
     """Advance the given particles (rows of the arrays, updated in place) by up to ``max_steps`` steps.
 
+    ``dt`` holds each particle's suggested next step for the adaptive scheme (updated in place).
     Returns the recorded vertices: ``rec_x (N, max_steps, 3)``, ``rec_t (N, max_steps)``,
     ``rec_v (N, max_steps, 3)`` and ``counts (N,)`` (valid entries per row).
     """
@@ -245,10 +301,6 @@ def advance_particles(x, t, v, h, cell, status, signs, t_end, step, max_steps, m
     rec_t = np.empty((n, max_steps))
     rec_v = np.empty((n, max_steps, 3))
     counts = np.zeros(n, np.int64)
-    rows = np.arange(n)
-    _advance_many(rows, x, t, v, h, cell, status, signs, float(t_end), float(step), int(max_steps), mesh, field,
-                  params, rec_x, rec_t, rec_v, counts)
+    _advance_many(x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh, field,
+                  params, TABLEAUS[integrator], rec_x, rec_t, rec_v, counts)
     return rec_x, rec_t, rec_v, counts
-
-
-__all__ += ["BARY_TOL"]

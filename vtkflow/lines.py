@@ -93,7 +93,10 @@ class ParticleTracer:
         Output frame times, ascending, inside the window.
     window : (start, stop)
     step : float
-        RK4 step as a fraction of the local cell size.
+        Largest step as a fraction of the local cell size.
+    integrator : {'rk4', 'dopri5'}
+    tolerance : float, optional
+        Local error per step of ``dopri5``, in length units.
     """
 
     particles = True
@@ -108,8 +111,11 @@ class ParticleTracer:
         frames: np.ndarray,
         window: tuple[float, float],
         step: float,
+        integrator: str = "rk4",
+        tolerance: Optional[float] = None,
     ) -> None:
         self.name, self.kind, self.step = name, kind, step
+        self.integrator, self.tolerance = integrator, tolerance
         self.frames, self.window = np.asarray(frames, dtype=float), window
         instants = snap_times(np.asarray(instants, dtype=float), self.frames, window)
         self.n_points = len(points)
@@ -142,7 +148,7 @@ class ParticleTracer:
             place(s, new, self.release_points[self.point_index[new]], self.release_time[new], field)
             if self.history is not None:
                 self.history(new, s.x[new], s.t[new], s.v[new])
-        advance(s, te, field, self.step, self.history)
+        advance(s, te, field, self.step, self.history, integrator=self.integrator, tolerance=self.tolerance)
 
     # ----------------------------------------------------------------------------------- assembling
     def assemble(self, time: float) -> Any:
@@ -209,8 +215,11 @@ class StreamlineTracer:
         direction: str,
         step: float,
         length: float,
+        integrator: str = "rk4",
+        tolerance: Optional[float] = None,
     ) -> None:
         self.name, self.kind = name, "streamline"
+        self.integrator, self.tolerance = integrator, tolerance
         self.seed_ids = np.flatnonzero(inside)
         self.seeds = np.asarray(points, dtype=float)[self.seed_ids]
         self.n_dropped = int(len(points) - len(self.seed_ids))
@@ -228,7 +237,9 @@ class StreamlineTracer:
     def assemble(self, field: TimeField, time: float) -> Any:
         from .output import polylines
 
-        lines = trace_streamlines(field, time, self.seeds, self.seed_ids, self.direction, self.step, self.length)
+        lines = trace_streamlines(
+            field, time, self.seeds, self.seed_ids, self.direction, self.step, self.length, self.integrator, self.tolerance
+        )
         self._ends.append(lines.ends)
         arrays = {
             "velocity": lines.velocity,

@@ -45,6 +45,8 @@ MIN_STEP = 1e-3
 BISECTIONS = 40
 #: Streamlines stop where the speed falls below this fraction of the largest speed at their seeds.
 STALL_SPEED = 1e-6
+#: The adaptive scheme's default local error per step, as a fraction of the local cell size.
+DEFAULT_RTOL = 1e-3
 #: Accepted steps per particle per call of the numba engine (its record buffers are this long).
 CHUNK_STEPS = 64
 #: A step is redone when the speed met along it exceeds the one it was sized for by this factor.
@@ -172,6 +174,7 @@ class State:
     h: np.ndarray  # (N,)
     status: np.ndarray  # (N,) int8
     cell: np.ndarray  # (N,) int64: last tetrahedron, where point location starts its walk (-1: none)
+    dt: np.ndarray  # (N,) the adaptive scheme's suggested next step (0: none yet)
 
     @classmethod
     def empty(cls, n: int) -> "State":
@@ -182,6 +185,7 @@ class State:
             np.ones(n),
             np.full(n, int(Status.pending), np.int8),
             np.full(n, -1, np.int64),
+            np.zeros(n),
         )
 
 
@@ -207,13 +211,21 @@ def advance(
     record: Optional[Recorder] = None,
     engine: str = "numba",
     max_iterations: int = MAX_ITERATIONS,
+    integrator: str = "rk4",
+    tolerance: Optional[float] = None,
 ) -> None:
     """Advance every active particle whose time is below ``t_end`` to ``t_end`` with classical RK4.
 
     The work is done by the numba engine (:mod:`vtkflow.integrate`) for a :class:`TimeField` or
     :class:`FrozenField`, and by its NumPy twin :func:`advance_numpy` for any other sampler or with
     ``engine="numpy"``; both follow the same rules (see :func:`advance_numpy`).
+
+    ``integrator="dopri5"`` (numba engine only) uses the adaptive Dormand–Prince 5(4) pair (Dormand &
+    Prince 1980, J. Comput. Appl. Math. 6) with its local error per step kept below ``tolerance`` (length
+    units; default ``DEFAULT_RTOL`` of the local cell size), the steps still bounded by ``step`` cells.
     """
+    if integrator != "rk4" and (engine == "numpy" or not hasattr(field, "kernel_args")):
+        raise ValueError(f"integrator {integrator!r} needs the numba engine")
     if engine == "numpy" or not hasattr(field, "kernel_args"):
         advance_numpy(state, t_end, field, step, record, max_iterations)
         return
@@ -221,7 +233,7 @@ def advance(
 
     mesh, args = field.kernel_args()
     signs = getattr(field, "sign", None)
-    params = (MIN_STEP, MAX_GROWTH)
+    params = (MIN_STEP, MAX_GROWTH, float(tolerance or 0.0), DEFAULT_RTOL)
     for _ in range(max_iterations):
         active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
         if active.size == 0:
@@ -229,11 +241,12 @@ def advance(
         x, t, v, h = state.x[active], state.t[active], state.v[active], state.h[active]
         cell, status = state.cell[active], state.status[active]
         sg = np.ones(active.size) if signs is None else np.ascontiguousarray(signs[active], dtype=np.float64)
+        dts = state.dt[active]
         rec_x, rec_t, rec_v, counts = advance_particles(
-            x, t, v, h, cell, status, sg, t_end, step, CHUNK_STEPS, mesh, args, params
+            x, t, v, h, cell, status, dts, sg, t_end, step, CHUNK_STEPS, mesh, args, params, integrator
         )
         state.x[active], state.t[active], state.v[active], state.h[active] = x, t, v, h
-        state.cell[active], state.status[active] = cell, status
+        state.cell[active], state.status[active], state.dt[active] = cell, status, dts
         if record is not None and counts.any():
             valid = np.arange(CHUNK_STEPS)[None, :] < counts[:, None]
             record(np.repeat(active, counts), rec_x[valid], rec_t[valid], rec_v[valid])
@@ -382,8 +395,10 @@ def trace_streamlines(
     direction: str,
     step: float,
     length: float,
+    integrator: str = "rk4",
+    tolerance: Optional[float] = None,
 ) -> StreamlineSet:
-    """Streamlines of the velocity frozen at ``time`` from ``seeds``, integrated in arc length with RK4.
+    """Streamlines of the velocity frozen at ``time`` from ``seeds``, integrated in arc length.
 
     Parameters
     ----------
@@ -399,6 +414,8 @@ def trace_streamlines(
         Step as a fraction of the local cell size.
     length : float
         Longest arc length per direction.
+    integrator, tolerance
+        As for :func:`advance`.
     """
     L = len(seeds)
     signs = {"forward": (1.0,), "backward": (-1.0,), "both": (-1.0, 1.0)}[direction]
@@ -417,7 +434,7 @@ def trace_streamlines(
     state = State.empty(len(sign))
     place(state, rows, start, np.zeros(len(sign)), frozen)
     record(rows, start, np.zeros(len(sign)), state.v)
-    advance(state, length, frozen, step, record)
+    advance(state, length, frozen, step, record, integrator=integrator, tolerance=tolerance)
 
     idx = np.concatenate([c[0] for c in chunks])
     x = np.concatenate([c[1] for c in chunks])

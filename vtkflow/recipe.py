@@ -162,7 +162,13 @@ class LineEntry(Strict):
         None, description="output frame times (default: every snapshot time inside the window)"
     )
     step: PositiveFloat = Field(
-        0.25, le=1.0, description="RK4 step as a fraction of the local cell size (length per step / cell size)"
+        0.25, le=1.0, description="largest step as a fraction of the local cell size (length per step / cell size)"
+    )
+    integrator: Literal["rk4", "dopri5"] = Field(
+        "rk4", description="rk4: classical Runge-Kutta at 'step'; dopri5: adaptive Dormand-Prince 5(4) within 'tolerance'"
+    )
+    tolerance: Optional[PositiveFloat] = Field(
+        None, description="dopri5 only: local error per step in length units (default: 1e-3 of the local cell size)"
     )
     length: Optional[PositiveFloat] = Field(
         None, description="streamline only: longest arc length per direction (default: twice the domain diagonal)"
@@ -184,6 +190,8 @@ class LineEntry(Strict):
             raise ValueError("'every' applies to particle lines only, not to a streamline")
         if particles and self.length is not None:
             raise ValueError(f"'length' applies to streamlines only, not to a {self.kind}")
+        if self.tolerance is not None and self.integrator != "dopri5":
+            raise ValueError("'tolerance' applies to integrator: dopri5 only")
         if LINE_KINDS[self.kind].needs_every and self.every is None:
             raise ValueError(f"a {self.kind} needs 'every' (time between release instants)")
         if self.start is not None and self.stop is not None and self.stop < self.start:

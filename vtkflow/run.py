@@ -127,9 +127,13 @@ def plan(loaded: LoadedRecipe, series: Series) -> Plan:
 def _tracer(p: EntryPlan, series: Series) -> Any:
     e = p.entry
     if LINE_KINDS[e.kind].particles:
-        return ParticleTracer(p.name, e.kind, p.points, p.inside, p.instants, p.frames, (p.start, p.stop), e.step)
+        return ParticleTracer(
+            p.name, e.kind, p.points, p.inside, p.instants, p.frames, (p.start, p.stop), e.step, e.integrator, e.tolerance
+        )
     length = e.length if e.length is not None else 2.0 * series.mesh.diagonal
-    return StreamlineTracer(p.name, p.points, p.inside, p.frames, e.direction or "forward", e.step, length)
+    return StreamlineTracer(
+        p.name, p.points, p.inside, p.frames, e.direction or "forward", e.step, length, e.integrator, e.tolerance
+    )
 
 
 def _clear_frames(output: Path, names: Sequence[str], suffix: str) -> None:
