@@ -162,7 +162,8 @@ class LineEntry(Strict):
         None, description="output frame times (default: every snapshot time inside the window)"
     )
     step: PositiveFloat = Field(
-        0.25, le=1.0, description="largest step as a fraction of the local cell size (length per step / cell size)"
+        0.25, le=16.0, description="largest step as a fraction of the local cell size (length per step / cell size);"
+        " keep it <= 1 for dopri5 too: its error estimate does not see the velocity gradient jump between cells"
     )
     integrator: Literal["rk4", "dopri5"] = Field(
         "rk4", description="rk4: classical Runge-Kutta at 'step'; dopri5: adaptive Dormand-Prince 5(4) within 'tolerance'"
