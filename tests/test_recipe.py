@@ -219,7 +219,7 @@ def test_direction_none_runs_forward(small_case: Path) -> None:
         ("lines.inst.every", 0.1, ["lines.inst", "'every' applies to particle lines only"]),
         ("lines.paths.length", 2.0, ["lines.paths", "'length' applies to streamlines only"]),
         ("lines.paths.stop", -1.0, ["lines.paths", "before start"]),
-        ("lines.paths.step", 1.5, ["lines.paths.step"]),
+        ("lines.paths.step", 20.0, ["lines.paths.step"]),
         ("lines.paths.step", 0.0, ["lines.paths.step"]),
         ("lines.inst.direction", "sideways", ["lines.inst.direction", "sideways"]),
         ("lines.paths.kind", "streak", ["lines.paths.kind", "'streak'", "pathline, streakline, streamline, timeline"]),
