@@ -125,3 +125,23 @@ def test_streamline_stops_at_stagnation_and_at_length(cube):
     lines = trace_streamlines(g, 0.0, np.array([[0.5, 0.1, 0.5]]), np.array([0]), "forward", 0.25, 0.3)
     assert lines.arc_length[-1] == pytest.approx(0.3, abs=1e-12)
     assert lines.ends[0, 0] == Status.active
+
+
+def test_python_api_traces_with_the_recipe_names(tmp_path):
+    """vtkflow.trace gives the same frames as a recipe entry with the same keys (oscillating uniform flow;
+    identical computation, so identical points)."""
+    import vtkflow
+    from flows import oscillating, run_case
+
+    mesh = box_mesh((0, -1, -0.5), (2, 1, 0.5), (10, 10, 5), "tetra")
+    body = "releases:\n  r: {line: {start: [0.2, -0.3, 0], end: [0.2, 0.3, 0], count: 3}}\nlines:\n  s: {kind: streakline, release: r, every: 0.1}\n"
+    manifest, out = run_case(tmp_path, mesh, oscillating(1.0, 0.5, 2.0), [0.0, 0.25, 0.5], body)
+    series = vtkflow.Series.open("case/*.vtu", {"field": "time"}, "U", tmp_path)
+    frames = vtkflow.trace(series, "streakline", {"line": {"start": [0.2, -0.3, 0], "end": [0.2, 0.3, 0], "count": 3}}, every=0.1)
+    assert [t for t, _ in frames] == [f["time"] for f in manifest["entries"]["s"]["frames"]]
+    import pyvista as pv
+
+    last = pv.read(out / manifest["entries"]["s"]["frames"][-1]["file"])
+    np.testing.assert_array_equal(frames[-1][1].points, last.points)
+    with pytest.raises(vtkflow.RecipeError, match="every"):
+        vtkflow.trace(series, "streakline", np.zeros((1, 3)))  # a streakline needs 'every'

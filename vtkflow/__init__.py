@@ -16,6 +16,7 @@ from .recipe import LoadedRecipe, Recipe, json_schema, load_recipe, parse_recipe
 from .releases import SHAPES, release_points
 from .run import open_series, plan, run_recipe
 from .series import Series
+from .api import trace
 
 __all__ = [
     "__version__",
@@ -40,4 +41,5 @@ __all__ = [
     "plan",
     "run_recipe",
     "Series",
+    "trace",
 ]

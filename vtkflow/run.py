@@ -25,7 +25,7 @@ from .recipe import FrameEvery, LineEntry, LoadedRecipe
 from .releases import release_points
 from .series import Series
 
-__all__ = ["open_series", "plan", "Plan", "EntryPlan", "run_recipe", "frame_times"]
+__all__ = ["open_series", "plan", "plan_entry", "Plan", "EntryPlan", "run_recipe", "frame_times", "stream", "make_tracer"]
 
 Progress = Callable[[str, int, float], None]
 Warn = Callable[[str], None]
@@ -94,28 +94,13 @@ class Plan:
 def plan(loaded: LoadedRecipe, series: Series) -> Plan:
     """Resolve windows, frames and release points of every entry; report bad windows as :class:`RecipeError`."""
     recipe = loaded.recipe
-    times = series.times
-    t_first, t_last = float(times[0]), float(times[-1])
-    eps = TIME_RTOL * max(1.0, t_last - t_first)
     result = Plan(series)
     for rname, release in recipe.releases.items():
         pts = release_points(release.shape, release.spec)
         result.releases[rname] = (pts, series.mesh.contains(pts))
     for name, entry in recipe.lines.items():
-        key = f"lines.{name}"
-        start = t_first if entry.start is None else float(entry.start)
-        stop = t_last if entry.stop is None else float(entry.stop)
-        for k, value in (("start", start), ("stop", stop)):
-            if value < t_first - eps or value > t_last + eps:
-                raise RecipeError(
-                    f"{loaded.path}: {key}.{k}: {value:g} lies outside the snapshot times [{t_first:g}, {t_last:g}]"
-                )
-        start, stop = max(start, t_first), min(stop, t_last)
-        frames = frame_times(start, stop, times, entry.frames, key)
-        particles = LINE_KINDS[entry.kind].particles
-        instants = release_instants(start, stop, entry.every) if particles else np.zeros(0)
         pts, inside = result.releases[entry.release]
-        result.entries.append(EntryPlan(name, entry, start, stop, frames, instants, pts, inside))
+        result.entries.append(plan_entry(name, entry, pts, inside, series.times, f"{loaded.path}: "))
     for name, render in recipe.renders.items():
         for i, context in enumerate(render.context):
             path = loaded.base / context
@@ -124,7 +109,54 @@ def plan(loaded: LoadedRecipe, series: Series) -> Plan:
     return result
 
 
-def _tracer(p: EntryPlan, series: Series) -> Any:
+def plan_entry(
+    name: str, entry: LineEntry, points: np.ndarray, inside: np.ndarray, times: np.ndarray, where: str = ""
+) -> EntryPlan:
+    """Window, frames and release instants of one line entry; a window outside ``times`` is a
+    :class:`RecipeError` naming ``lines.<name>.start`` or ``.stop`` (after ``where``, e.g. the recipe file)."""
+    key = f"lines.{name}"
+    t_first, t_last = float(times[0]), float(times[-1])
+    eps = TIME_RTOL * max(1.0, t_last - t_first)
+    start = t_first if entry.start is None else float(entry.start)
+    stop = t_last if entry.stop is None else float(entry.stop)
+    for k, value in (("start", start), ("stop", stop)):
+        if value < t_first - eps or value > t_last + eps:
+            raise RecipeError(f"{where}{key}.{k}: {value:g} lies outside the snapshot times [{t_first:g}, {t_last:g}]")
+    start, stop = max(start, t_first), min(stop, t_last)
+    frames = frame_times(start, stop, times, entry.frames, key)
+    particles = LINE_KINDS[entry.kind].particles
+    instants = release_instants(start, stop, entry.every) if particles else np.zeros(0)
+    return EntryPlan(name, entry, start, stop, frames, instants, points, inside)
+
+
+def stream(series: Series, tracers: Sequence[Any], emit: Callable[[str], Callable[[int, float, Any], None]],
+           last_needed: float) -> dict[str, int]:
+    """One pass over the snapshot intervals: load two snapshots at a time and advance every tracer.
+
+    Returns the NaN point counts of the snapshots read, by file label.
+    """
+    emits = {t.name: emit(t.name) for t in tracers}
+    field = TimeField(series.mesh)
+    times = series.times
+    nan_files: dict[str, int] = {}
+    for k in range(max(1, len(series) - 1)):
+        k1 = min(k + 1, len(series) - 1)
+        t0, t1 = float(times[k]), float(times[k1])
+        if k > 0 and t0 >= last_needed:  # every window has ended: later snapshots are not read
+            break
+        u0, u1 = series.velocity(k), series.velocity(k1)
+        for j, u in ((k, u0), (k1, u1)):
+            n_nan = int(np.count_nonzero(~np.isfinite(u).all(axis=1)))
+            if n_nan:
+                nan_files[series.snapshots[j].label] = n_nan
+        field.load(t0, u0, t1, u1)
+        for tracer in tracers:
+            tracer.interval(field, t0, t1, k == 0, emits[tracer.name])
+    return nan_files
+
+
+def make_tracer(p: EntryPlan, series: Series) -> Any:
+    """The tracer that computes a planned entry."""
     e = p.entry
     if LINE_KINDS[e.kind].particles:
         return ParticleTracer(
@@ -189,7 +221,7 @@ def run_recipe(
         key = "--output" if output is not None else "output"
         raise OutputError(f"{out}: cannot use this {key} folder ({exc.strerror or exc})") from None
     _clear_frames(out, [e.name for e in p.entries], ".vtp")
-    tracers = [_tracer(e, series) for e in p.entries]
+    tracers = [make_tracer(e, series) for e in p.entries]
     frames: dict[str, list[dict[str, Any]]] = {e.name: [] for e in p.entries}
     total = p.n_frames
     done = 0
@@ -205,25 +237,8 @@ def run_recipe(
 
         return emit
 
-    emits = {t.name: emit_for(t.name) for t in tracers}
-    field = TimeField(series.mesh)
-    times = series.times
-    last_needed = max((e.stop for e in p.entries), default=float(times[0]))
-    n_intervals = max(1, len(series) - 1)
-    nan_files: dict[str, int] = {}
-    for k in range(n_intervals):
-        k1 = min(k + 1, len(series) - 1)
-        t0, t1 = float(times[k]), float(times[k1])
-        if k > 0 and t0 >= last_needed:  # every window has ended: later snapshots are not read
-            break
-        u0, u1 = series.velocity(k), series.velocity(k1)
-        for j, u in ((k, u0), (k1, u1)):
-            n_nan = int(np.count_nonzero(~np.isfinite(u).all(axis=1)))
-            if n_nan:
-                nan_files[series.snapshots[j].label] = n_nan
-        field.load(t0, u0, t1, u1)
-        for tracer in tracers:
-            tracer.interval(field, t0, t1, k == 0, emits[tracer.name])
+    last_needed = max((e.stop for e in p.entries), default=float(series.times[0]))
+    nan_files = stream(series, tracers, emit_for, last_needed)
 
     entries: dict[str, Any] = {}
     n_nan_particles = 0
@@ -253,7 +268,7 @@ def run_recipe(
         "output": str(out),
         "series": {
             "snapshots": len(series),
-            "time_range": [float(times[0]), float(times[-1])],
+            "time_range": [float(series.times[0]), float(series.times[-1])],
             "mesh": {"points": series.mesh.n_points, "cells": series.mesh.n_cells},
         },
         "status_names": STATUS_NAMES,
