@@ -1,111 +1,73 @@
-"""Benchmarks of vtkflow's engine against VTK's stream tracer, in the same run (figures, never tests).
+"""Run every benchmark of vtkflow against its peer in the same run, one after the other, and print one table.
 
-Steady ABC flow (Dombre et al. 1986, J. Fluid Mech. 167) on a tetrahedral box mesh; streamlines from
-the same seeds with RK4 at a quarter cell per step, both ways:
+Scripts (each also runs on its own; see its docstring):
 
-* vtkflow: ``particles.trace_streamlines`` (RK4 vectorised over seeds in NumPy, numba point location and
-  interpolation on the tetrahedral decomposition);
-* peer: VTK's ``vtkStreamTracer`` (RK4, step in cell-length units), threads as VTK's SMP backend allows.
+* ``steady.py``    streamlines on 1.2 M tetrahedra: vtkflow's ``trace_streamlines`` vs VTK's ``vtkStreamTracer``;
+* ``transient.py`` 10,000 pathlines through 20 snapshots on 200 k tetrahedra: vtkflow's ``advance`` vs VTK's
+  ``vtkParticleTracer`` (and ``vtkParticlePathFilter``), each VTK setup guarded in a subprocess;
+* ``prep.py``      vtkflow's mesh preparation vs VTK reading the same mesh from a compressed ``.vtu``;
+* ``memory.py``    peak RSS of a recipe run over 20 vs 200 snapshots.
 
-Reported: velocity evaluations per second on each side and their ratio, and the end-point error of both
-against SciPy's ``solve_ivp`` (DOP853, rtol 1e-12) after the same arc length.
+Both sides run on 2 threads (VTK's SMP backend on std::thread, numba's pool). In the final table the
+ratio is vtkflow / peer: above 1 is better for rates, below 1 for times, errors and memory; the peer is
+VTK's filter, except in ``memory`` where it is the run over the shorter series. Speed and memory goals
+live here, never in the tests.
 
-Usage: ``python benchmarks/run_all.py [--cells N] [--seeds N]``.
+Usage: ``python benchmarks/run_all.py [--quick] [--only steady transient ...]`` (``--quick``: each script's
+small version, well under a minute in all).
 """
 
 from __future__ import annotations
 
 import argparse
+import json
+import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-import pyvista as pv
-from scipy.integrate import solve_ivp
-from vtkmodules.util.numpy_support import numpy_to_vtk, vtk_to_numpy
-from vtkmodules.vtkFiltersFlowPaths import vtkStreamTracer
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+from _common import Figure, format_table  # noqa: E402
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
-from flows import abc, box_mesh  # noqa: E402
-
-from vtkflow.mesh import Mesh  # noqa: E402
-from vtkflow.particles import TimeField, trace_streamlines  # noqa: E402
+SCRIPTS = ["steady", "transient", "prep", "memory"]
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser()
-    ap.add_argument("--cells", type=int, default=24, help="hexahedra per direction before the tet split")
-    ap.add_argument("--seeds", type=int, default=10_000)
-    ap.add_argument("--length", type=float, default=1.0)
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--quick", action="store_true", help="the small version of every script")
+    ap.add_argument("--only", nargs="+", choices=SCRIPTS, default=SCRIPTS, help="run only these scripts")
+    ap.add_argument("--threads", type=int, default=2, help="threads on each side (default 2)")
+    ap.add_argument("--json", default=None, help="also write every figure to this JSON file")
     args = ap.parse_args()
 
-    flow = abc()
-    grid = box_mesh((0, 0, 0), (2 * np.pi, 2 * np.pi, 2 * np.pi), (args.cells,) * 3, "tetra")
-    u = flow(np.asarray(grid.points), 0.0)
-    rng = np.random.default_rng(1)
-    seeds = rng.uniform(2.0, 4.3, (args.seeds, 3))
-    print(f"mesh: {grid.n_cells} tetrahedra; {args.seeds} seeds; arc length {args.length}")
-
-    # vtkflow
-    mesh = Mesh(grid)
-    field = TimeField(mesh)
-    field.load(0.0, u, 1.0, u)
-    calls = {"n": 0}
-    sample = mesh.sample
-
-    def counting(points):
-        calls["n"] += len(points)
-        return sample(points)
-
-    trace_streamlines(field, 0.0, seeds[:4], np.arange(4), "forward", 0.25, 0.05)  # compile / load kernels
-    mesh.sample = counting  # type: ignore[method-assign]
-    t0 = time.perf_counter()
-    lines = trace_streamlines(field, 0.0, seeds, np.arange(len(seeds)), "forward", 0.25, args.length)
-    t_ours = time.perf_counter() - t0
-    ends = lines.points[np.cumsum(lines.lengths) - 1]
-    rate_ours = calls["n"] / t_ours
-
-    # VTK's stream tracer
-    g = grid.copy()
-    g.point_data["U"] = u
-    g.set_active_vectors("U")
-    src = pv.PolyData(seeds)
-    st = vtkStreamTracer()
-    st.SetInputData(g)
-    st.SetSourceData(src)
-    st.SetIntegratorTypeToRungeKutta4()
-    st.SetIntegrationStepUnit(vtkStreamTracer.CELL_LENGTH_UNIT)
-    st.SetInitialIntegrationStep(0.25)
-    st.SetMaximumPropagation(args.length)
-    st.SetMaximumNumberOfSteps(1_000_000)
-    st.SetIntegrationDirectionToForward()
-    st.SetComputeVorticity(False)
-    t0 = time.perf_counter()
-    st.Update()
-    t_vtk = time.perf_counter() - t0
-    out = pv.wrap(st.GetOutput())
-    n_steps = out.n_points - out.n_cells
-    rate_vtk = 4 * n_steps / t_vtk  # RK4: four evaluations per step
-    seed_ids = np.asarray(out.point_data["SeedIds"]) if "SeedIds" in out.point_data else None
-    vtk_ends = np.full((len(seeds), 3), np.nan)
-    for cid in range(out.n_cells):
-        ids = out.get_cell(cid).point_ids
-        sid = int(out.cell_data["SeedIds"][cid]) if "SeedIds" in out.cell_data else cid
-        vtk_ends[sid] = out.points[ids[-1]]
-    del seed_ids
-
-    # reference: the same arc length along the analytic field
-    def unit(s, x):
-        v = flow(x[None, :], 0.0)[0]
-        return v / np.linalg.norm(v)
-
-    ref = np.array([solve_ivp(unit, (0, args.length), s, method="DOP853", rtol=1e-12, atol=1e-12).y[:, -1] for s in seeds])
-    err_ours = np.nanmax(np.linalg.norm(ends - ref, axis=1))
-    err_vtk = np.nanmax(np.linalg.norm(vtk_ends - ref, axis=1))
-    print(f"vtkflow : {t_ours:7.2f} s  {rate_ours / 1e6:6.3f} M evaluations/s  max end error {err_ours:.2e}")
-    print(f"VTK     : {t_vtk:7.2f} s  {rate_vtk / 1e6:6.3f} M evaluations/s  max end error {err_vtk:.2e}")
-    print(f"ratio vtkflow/VTK evaluations per second: {rate_ours / rate_vtk:.2f}")
+    figures: list[Figure] = []
+    failed: list[str] = []
+    started = time.perf_counter()
+    with tempfile.TemporaryDirectory(prefix="vtkflow-bench-") as tmp:
+        for name in args.only:
+            out = Path(tmp) / f"{name}.json"
+            cmd = [sys.executable, str(HERE / f"{name}.py"), "--json", str(out), "--threads", str(args.threads)]
+            if args.quick:
+                cmd.append("--quick")
+            print(f"\n=== {name}.py{' --quick' if args.quick else ''} ===", flush=True)
+            t0 = time.perf_counter()
+            rc = subprocess.call(cmd)
+            took = time.perf_counter() - t0
+            if rc != 0 or not out.is_file():
+                failed.append(f"{name}.py (exit {rc})")
+                print(f"=== {name}.py FAILED (exit {rc}) after {took:.0f} s ===", flush=True)
+                continue
+            print(f"=== {name}.py done in {took:.0f} s ===", flush=True)
+            figures += [Figure(**f) for f in json.loads(out.read_text())["figures"]]
+    print(f"\n=== all figures ({time.perf_counter() - started:.0f} s; ratio = vtkflow / peer) ===")
+    print(format_table(figures))
+    if args.json:
+        Path(args.json).write_text(json.dumps([f.__dict__ for f in figures], indent=1))
+    if failed:
+        print("failed: " + ", ".join(failed))
+        sys.exit(1)
 
 
 if __name__ == "__main__":
