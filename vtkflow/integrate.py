@@ -14,8 +14,9 @@ threads (bitwise). The rules are those of the NumPy twin :func:`vtkflow.particle
 
 Two modes share the kernel: time-accurate (velocity linear in time between the two loaded snapshots) and
 frozen (the unit tangent ``sign * u / |u|`` at one time, integrated in arc length, for streamlines).
-At most ``max_steps`` accepted steps are taken per call, recorded into per-particle buffers; the Python
-wrapper calls again until every particle is done.
+At most ``max_steps`` accepted steps are taken per call, recorded into per-particle buffers (position,
+time, and the velocity itself, also in frozen mode); the Python wrapper calls again until every particle
+is done.
 """
 
 from __future__ import annotations
@@ -34,13 +35,14 @@ OUTSIDE = -1
 
 @njit(cache=True, nogil=True)
 def _sample(x, t, hint, mesh, field, sign, v_out, bary):
-    """Velocity at (x, t) into ``v_out``; returns (tetrahedron or -1, local cell size, stop code)."""
+    """Velocity at (x, t) into ``v_out``; returns (tetrahedron or -1, local cell size, stop code, speed)
+    where speed is that of the velocity itself (in frozen mode ``v_out`` is its unit tangent)."""
     p0, tinv, nbr, conn, origin, spacing, dims, start, items = mesh
     values, t0, t1, frozen, time, floor = field
     cell = _locate(x, hint, p0, tinv, nbr, origin, spacing, dims, start, items, bary)
     if cell < 0:
         v_out[:] = 0.0
-        return -1, 0.0, OUTSIDE
+        return -1, 0.0, OUTSIDE, 0.0
     tt = time if frozen else t
     a = 0.0
     if t1 != t0:
@@ -67,15 +69,15 @@ def _sample(x, t, hint, mesh, field, sign, v_out, bary):
         h += bary[k] * values[conn[cell, k], 6]
     if bad:
         v_out[:] = 0.0
-        return cell, h, NAN
+        return cell, h, NAN, 0.0
+    speed = np.sqrt(v_out[0] ** 2 + v_out[1] ** 2 + v_out[2] ** 2)
     if frozen:
-        speed = np.sqrt(v_out[0] ** 2 + v_out[1] ** 2 + v_out[2] ** 2)
         if not speed > floor:
             v_out[:] = 0.0
-            return cell, h, STALLED
+            return cell, h, STALLED, 0.0
         for c in range(3):
             v_out[c] = sign * v_out[c] / speed
-    return cell, h, ACTIVE
+    return cell, h, ACTIVE, speed
 
 
 @njit(cache=True, nogil=True)
@@ -165,6 +167,12 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
             C[i] = cell
             return 0
     cap = D[i] if adaptive and D[i] > 0.0 else np.inf  # the adaptive scheme's suggested step
+    # recorded velocities are the velocity itself; in frozen mode v is the unit tangent: scale it back
+    frozen = field[3]
+    scale = 1.0
+    if frozen:
+        _, _, _, spd = _sample(x, t, cell, mesh, field, sign, kn, bary)
+        scale = sign * spd
     guard = 0
     while n < max_steps and S[i] == ACTIVE and t < t_end:
         guard += 1
@@ -187,14 +195,14 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
                 for m in range(j):
                     acc += aa[j, m] * k[m, c]
                 y[c] = x[c] + dt * acc
-            cj, hj, sj = _sample(y, t + cc[j] * dt, cells[j - 1], mesh, field, sign, k[j], bary)
+            cj, hj, sj, _ = _sample(y, t + cc[j] * dt, cells[j - 1], mesh, field, sign, k[j], bary)
             cells[j] = cj
             codes[j] = sj
             if cj < 0:
                 break
             n_in += 1
         inside = n_in == ns
-        cn, hn, sn = -1, 0.0, OUTSIDE
+        cn, hn, sn, spn = -1, 0.0, OUTSIDE, 0.0
         tn = t_end if last else t + dt
         if inside:
             for c in range(3):
@@ -202,7 +210,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
                 for m in range(ns):
                     acc += bb[m] * k[m, c]
                 xn[c] = x[c] + dt * acc
-            cn, hn, sn = _sample(xn, tn, cells[ns - 1], mesh, field, sign, kn, bary)
+            cn, hn, sn, spn = _sample(xn, tn, cells[ns - 1], mesh, field, sign, kn, bary)
             inside = cn >= 0
         vmax = 0.0
         for m in range(n_in):
@@ -228,7 +236,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
                         t = min(t + dist / ms, t_end)
                         rec_x[i, n] = x
                         rec_t[i, n] = t
-                        rec_v[i, n] = v
+                        rec_v[i, n] = v * scale
                         n += 1
                 S[i] = EXITED
                 break
@@ -265,9 +273,11 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
         v[:] = kn
         h = hn
         cell = cn
+        if frozen:
+            scale = sign * spn
         rec_x[i, n] = x
         rec_t[i, n] = t
-        rec_v[i, n] = v
+        rec_v[i, n] = v * scale
         n += 1
         if sn > 0:
             S[i] = sn

@@ -132,12 +132,13 @@ class Locator:
         self.tm = tm
         pts = tm.points[tm.tets]
         self.p0 = np.ascontiguousarray(pts[:, 0])
-        edges = np.stack([pts[:, 1] - pts[:, 0], pts[:, 2] - pts[:, 0], pts[:, 3] - pts[:, 0]], axis=2)
-        det = np.linalg.det(edges)
+        e1, e2, e3 = pts[:, 1] - pts[:, 0], pts[:, 2] - pts[:, 0], pts[:, 3] - pts[:, 0]
+        # inverse of the edge matrix [e1 e2 e3] by cross products: its rows are (e2 x e3, e3 x e1, e1 x e2) / det
+        rows = np.stack([np.cross(e2, e3), np.cross(e3, e1), np.cross(e1, e2)], axis=1)
+        det = np.einsum("ij,ij->i", e1, rows[:, 0])
         ok = np.abs(det) > 1e-300
         tinv = np.full((len(pts), 3, 3), np.inf)  # degenerate tetrahedra never contain a point
-        if ok.any():
-            tinv[ok] = np.linalg.inv(edges[ok])
+        tinv[ok] = rows[ok] / det[ok, None, None]
         self.tinv = tinv
         self.nbr = face_neighbours(tm.tets)
         self.bins: BinGrid = bin_grid(tm.points, tm.tets)

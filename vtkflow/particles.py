@@ -429,25 +429,27 @@ def trace_streamlines(
     chunks: list[tuple[np.ndarray, ...]] = []
 
     def record(idx: np.ndarray, x: np.ndarray, s: np.ndarray, v: np.ndarray) -> None:
-        chunks.append((idx.copy(), x.copy(), s.copy()))
+        chunks.append((idx.copy(), x.copy(), s.copy(), v.copy()))
 
     state = State.empty(len(sign))
     place(state, rows, start, np.zeros(len(sign)), frozen)
-    record(rows, start, np.zeros(len(sign)), state.v)
+    record(rows, start, np.zeros(len(sign)), probe.velocity(start).v)
+    # the numba engine records the velocity itself (not the unit tangent it integrates)
     advance(state, length, frozen, step, record, integrator=integrator, tolerance=tolerance)
 
     idx = np.concatenate([c[0] for c in chunks])
     x = np.concatenate([c[1] for c in chunks])
     arc = np.concatenate([c[2] for c in chunks]) * sign[idx]
+    vel = np.concatenate([c[3] for c in chunks])
     if direction == "both":  # the seed vertex appears once, with the forward part
         keep = ~((sign[idx] < 0) & (arc == 0.0))
-        idx, x, arc = idx[keep], x[keep], arc[keep]
+        idx, x, arc, vel = idx[keep], x[keep], arc[keep], vel[keep]
     seed = idx % L if L else idx
     order = np.lexsort((arc, seed))  # per seed by signed arc length: backward part reversed, then forward
-    idx, x, arc, seed = idx[order], x[order], arc[order], seed[order]
+    idx, x, arc, seed, vel = idx[order], x[order], arc[order], seed[order], vel[order]
     return StreamlineSet(
         points=x,
-        velocity=probe.velocity(x).v,  # the velocity itself, not the unit tangent
+        velocity=vel,
         arc_length=arc,
         seed=np.asarray(seed_ids)[seed],
         lengths=np.bincount(seed, minlength=L),

@@ -196,9 +196,16 @@ def face_neighbours(tets: np.ndarray) -> np.ndarray:
     m = len(tets)
     opposite = np.array([[1, 2, 3], [0, 2, 3], [0, 1, 3], [0, 1, 2]])
     faces = np.sort(tets[:, opposite].reshape(-1, 3), axis=1)  # (4 M, 3), row 4 t + i
-    order = np.lexsort((faces[:, 2], faces[:, 1], faces[:, 0]))
-    f = faces[order]
-    same = np.all(f[1:] == f[:-1], axis=1)
+    n = int(tets.max()) + 1 if m else 1
+    if float(n) ** 3 < 2.0**62:  # one int64 key per face: a single sort
+        key = (faces[:, 0] * n + faces[:, 1]) * n + faces[:, 2]
+        order = np.argsort(key, kind="stable")
+        k = key[order]
+        same = k[1:] == k[:-1]
+    else:
+        order = np.lexsort((faces[:, 2], faces[:, 1], faces[:, 0]))
+        f = faces[order]
+        same = np.all(f[1:] == f[:-1], axis=1)
     a, b = order[:-1][same], order[1:][same]
     nbr = np.full(4 * m, -1, dtype=np.int64)
     nbr[a] = b // 4
@@ -218,7 +225,7 @@ class BinGrid:
     items: np.ndarray  # (K,) int64
 
 
-def bin_grid(points: np.ndarray, tets: np.ndarray, per_bin: float = 2.0) -> BinGrid:
+def bin_grid(points: np.ndarray, tets: np.ndarray, per_bin: float = 8.0) -> BinGrid:
     """Bins of about ``per_bin`` tetrahedra each, sized after the mesh bounds (vectorised build)."""
     p = points[tets]
     origin, top = points.min(axis=0), points.max(axis=0)
