@@ -8,8 +8,8 @@ what a run does once per series — and its parts, each timed on its own:
 
 * VTK copy and arrays: the structure copy, points, offsets, connectivity, cell types (``Mesh.__init__``);
 * cell sizes: ``Mesh._cell_sizes`` (VTK's cell-size filter) and the smallest size per point;
-* ``tetmesh.decompose`` (conforming tetrahedra), ``tetmesh.face_neighbours``, ``tetmesh.bin_grid``;
-* the inverse edge matrices of the point locator (``kernels.Locator``: determinants and inverses).
+* ``tetmesh.decompose`` (conforming tetrahedra), ``tetmesh.face_neighbours``, ``kernels.build_bins``;
+* the inverse edge matrices of the point locator (``kernels.tet_inverses``).
 
 Ratio: preparation / read; the goal is <= 1.0. The fastest of ``--repeat`` runs counts on both sides; the
 first ``Mesh(grid)`` of the process, which is what a run pays (its large temporaries come fresh from the
@@ -65,7 +65,8 @@ def parts(grid) -> dict[str, float]:
     from vtkflow import _vtk
     from vtkflow._vtk import vtk_to_numpy
     from vtkflow.mesh import Mesh, cell_types
-    from vtkflow.tetmesh import bin_grid, decompose, face_neighbours
+    from vtkflow.kernels import build_bins, tet_inverses
+    from vtkflow.tetmesh import decompose, face_neighbours
 
     out = {}
     t0 = time.perf_counter()
@@ -90,20 +91,9 @@ def parts(grid) -> dict[str, float]:
 
     out["tetmesh.decompose"], tm = timed(lambda: decompose(m.points, m.offsets, m.connectivity, m.cell_types))
 
-    def inverses():  # as kernels.Locator.__init__ does
-        pts = tm.points[tm.tets]
-        p0 = np.ascontiguousarray(pts[:, 0])
-        edges = np.stack([pts[:, 1] - pts[:, 0], pts[:, 2] - pts[:, 0], pts[:, 3] - pts[:, 0]], axis=2)
-        det = np.linalg.det(edges)
-        ok = np.abs(det) > 1e-300
-        tinv = np.full((len(pts), 3, 3), np.inf)
-        if ok.any():
-            tinv[ok] = np.linalg.inv(edges[ok])
-        return p0, tinv
-
-    out["Locator inverse matrices"], _ = timed(inverses)
+    out["Locator inverse matrices"], _ = timed(lambda: tet_inverses(tm.points, tm.tets))
     out["tetmesh.face_neighbours"], _ = timed(lambda: face_neighbours(tm.tets))
-    out["tetmesh.bin_grid"], bins = timed(lambda: bin_grid(tm.points, tm.tets))
+    out["kernels.build_bins"], bins = timed(lambda: build_bins(tm.points, tm.tets))
     out["_bin_entries"] = float(len(bins.items))
     return out
 

@@ -16,9 +16,9 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from .tetmesh import BinGrid, TetMesh, bin_grid, face_neighbours
+from .tetmesh import BinGrid, TetMesh, face_neighbours, grid_shape
 
-__all__ = ["Locator", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "build_bins", "tet_inverses", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -115,6 +115,88 @@ def _interpolate(tets, bary, conn, values, out):
             out[i, c] = acc
 
 
+@njit(cache=True)
+def _bin_ranges(points, tets, origin, spacing, dims, pad, lo, hi):
+    """First and last bin index per axis of each tetrahedron's bounding box, padded by ``pad``."""
+    for t in range(tets.shape[0]):
+        for c in range(3):
+            a = np.inf
+            b = -np.inf
+            for k in range(4):
+                v = points[tets[t, k], c]
+                a = min(a, v)
+                b = max(b, v)
+            lo[t, c] = min(max(int((a - pad - origin[c]) / spacing[c]), 0), dims[c] - 1)
+            hi[t, c] = min(max(int((b + pad - origin[c]) / spacing[c]), 0), dims[c] - 1)
+
+
+@njit(cache=True)
+def _bin_fill(lo, hi, dims, start, items):
+    """Count, then list, the tetrahedra of every bin (in tetrahedron order within a bin)."""
+    counts = np.zeros(start.shape[0] - 1, np.int64)
+    for t in range(lo.shape[0]):
+        for z in range(lo[t, 2], hi[t, 2] + 1):
+            for y in range(lo[t, 1], hi[t, 1] + 1):
+                for x in range(lo[t, 0], hi[t, 0] + 1):
+                    counts[x + dims[0] * (y + dims[1] * z)] += 1
+    start[0] = 0
+    for b in range(counts.shape[0]):
+        start[b + 1] = start[b] + counts[b]
+    if items.shape[0] == 0:
+        return
+    fill = start[:-1].copy()
+    for t in range(lo.shape[0]):
+        for z in range(lo[t, 2], hi[t, 2] + 1):
+            for y in range(lo[t, 1], hi[t, 1] + 1):
+                for x in range(lo[t, 0], hi[t, 0] + 1):
+                    b = x + dims[0] * (y + dims[1] * z)
+                    items[fill[b]] = t
+                    fill[b] += 1
+
+
+@njit(cache=True, parallel=True)
+def _inverses(points, tets, p0, tinv):
+    for t in prange(tets.shape[0]):
+        a = tets[t, 0]
+        e = np.empty((3, 3))
+        for r in range(3):
+            for c in range(3):
+                e[r, c] = points[tets[t, r + 1], c] - points[a, c]
+            p0[t, r] = points[a, r]
+        # rows of the inverse of the edge matrix [e1 e2 e3] (edges as columns): (e2 x e3, e3 x e1, e1 x e2) / det
+        for r in range(3):
+            u, v = e[(r + 1) % 3], e[(r + 2) % 3]
+            tinv[t, r, 0] = u[1] * v[2] - u[2] * v[1]
+            tinv[t, r, 1] = u[2] * v[0] - u[0] * v[2]
+            tinv[t, r, 2] = u[0] * v[1] - u[1] * v[0]
+        det = e[0, 0] * tinv[t, 0, 0] + e[0, 1] * tinv[t, 0, 1] + e[0, 2] * tinv[t, 0, 2]
+        for r in range(3):
+            for c in range(3):
+                tinv[t, r, c] = tinv[t, r, c] / det if abs(det) > 1e-300 else np.inf
+
+
+def tet_inverses(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """First vertex ``(M, 3)`` and inverse edge matrix ``(M, 3, 3)`` of each tetrahedron: barycentric
+    coordinates are ``tinv @ (x - p0)``. Degenerate tetrahedra get infinite inverses (never contain)."""
+    p0 = np.empty((len(tets), 3))
+    tinv = np.empty((len(tets), 3, 3))
+    _inverses(np.ascontiguousarray(points, dtype=np.float64), np.ascontiguousarray(tets, dtype=np.int64), p0, tinv)
+    return p0, tinv
+
+
+def build_bins(points: np.ndarray, tets: np.ndarray, per_bin: float = 8.0) -> BinGrid:
+    """The bin grid of :func:`vtkflow.tetmesh.bin_grid` (its NumPy twin), built in two numba passes."""
+    origin, spacing, dims, pad = grid_shape(points, len(tets), per_bin)
+    lo = np.empty((len(tets), 3), np.int64)
+    hi = np.empty((len(tets), 3), np.int64)
+    _bin_ranges(points, tets, origin, spacing, dims, pad, lo, hi)
+    start = np.empty(int(np.prod(dims)) + 1, np.int64)
+    _bin_fill(lo, hi, dims, start, np.zeros(0, np.int64))
+    items = np.empty(int(start[-1]), np.int64)
+    _bin_fill(lo, hi, dims, start, items)
+    return BinGrid(origin, spacing, dims, start, items)
+
+
 class Locator:
     """Point location and linear interpolation on the tetrahedral decomposition of a mesh.
 
@@ -130,18 +212,9 @@ class Locator:
 
     def __init__(self, tm: TetMesh) -> None:
         self.tm = tm
-        pts = tm.points[tm.tets]
-        self.p0 = np.ascontiguousarray(pts[:, 0])
-        e1, e2, e3 = pts[:, 1] - pts[:, 0], pts[:, 2] - pts[:, 0], pts[:, 3] - pts[:, 0]
-        # inverse of the edge matrix [e1 e2 e3] by cross products: its rows are (e2 x e3, e3 x e1, e1 x e2) / det
-        rows = np.stack([np.cross(e2, e3), np.cross(e3, e1), np.cross(e1, e2)], axis=1)
-        det = np.einsum("ij,ij->i", e1, rows[:, 0])
-        ok = np.abs(det) > 1e-300
-        tinv = np.full((len(pts), 3, 3), np.inf)  # degenerate tetrahedra never contain a point
-        tinv[ok] = rows[ok] / det[ok, None, None]
-        self.tinv = tinv
+        self.p0, self.tinv = tet_inverses(tm.points, tm.tets)
         self.nbr = face_neighbours(tm.tets)
-        self.bins: BinGrid = bin_grid(tm.points, tm.tets)
+        self.bins: BinGrid = build_bins(tm.points, tm.tets)
         self.conn = np.ascontiguousarray(tm.tets)
 
     def locate(self, x: np.ndarray, hints: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:

@@ -24,7 +24,7 @@ import scipy.sparse as sp
 
 from .errors import InputError
 
-__all__ = ["TetMesh", "decompose", "split_wedges", "face_neighbours", "BinGrid", "bin_grid"]
+__all__ = ["TetMesh", "decompose", "split_wedges", "face_neighbours", "BinGrid", "bin_grid", "grid_shape"]
 
 TETRA, VOXEL, HEXAHEDRON, WEDGE, PYRAMID = 10, 11, 12, 13, 14
 
@@ -225,19 +225,23 @@ class BinGrid:
     items: np.ndarray  # (K,) int64
 
 
-def bin_grid(points: np.ndarray, tets: np.ndarray, per_bin: float = 8.0) -> BinGrid:
-    """Bins of about ``per_bin`` tetrahedra each, sized after the mesh bounds (vectorised build)."""
-    p = points[tets]
+def grid_shape(points: np.ndarray, n_tets: int, per_bin: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    """Origin, spacing and dimensions of a bin grid of about ``per_bin`` tetrahedra per bin over the
+    bounds of ``points``, bins as close to cubes as the bounds allow; and the padding of the boxes."""
     origin, top = points.min(axis=0), points.max(axis=0)
     extent = np.maximum(top - origin, 1e-300)
-    # boxes padded by round-off, so that a point on a box face finds the tetrahedron from either bin
-    pad = 1e-9 * float(extent.max())
-    lo, hi = p.min(axis=1) - pad, p.max(axis=1) + pad
-    n_bins = max(1.0, len(tets) / per_bin)
-    # bins as close to cubes as the bounds allow
-    cube = (np.prod(extent) / n_bins) ** (1.0 / 3.0)
+    cube = (np.prod(extent) / max(1.0, n_tets / per_bin)) ** (1.0 / 3.0)
     dims = np.clip(np.ceil(extent / cube), 1, 2048).astype(np.int64)
-    spacing = extent / dims
+    # boxes padded by round-off, so that a point on a box face finds the tetrahedron from either bin
+    return origin, extent / dims, dims, 1e-9 * float(extent.max())
+
+
+def bin_grid(points: np.ndarray, tets: np.ndarray, per_bin: float = 8.0) -> BinGrid:
+    """Bins of about ``per_bin`` tetrahedra each (vectorised NumPy; the twin of
+    :func:`vtkflow.kernels.build_bins`, which the locator uses)."""
+    origin, spacing, dims, pad = grid_shape(points, len(tets), per_bin)
+    p = points[tets]
+    lo, hi = p.min(axis=1) - pad, p.max(axis=1) + pad
     i0 = np.clip(((lo - origin) / spacing).astype(np.int64), 0, dims - 1)
     i1 = np.clip(((hi - origin) / spacing).astype(np.int64), 0, dims - 1)
     span = i1 - i0 + 1
