@@ -167,6 +167,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
             C[i] = cell
             return 0
     cap = D[i] if adaptive and D[i] > 0.0 else np.inf  # the adaptive scheme's suggested step
+    recording = rec_x.shape[1] > 0  # without buffers, steps are taken but not recorded
     # recorded velocities are the velocity itself; in frozen mode v is the unit tangent: scale it back
     frozen = field[3]
     scale = 1.0
@@ -234,9 +235,10 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
                     if dist > 0.0:
                         x = x + dist * d
                         t = min(t + dist / ms, t_end)
-                        rec_x[i, n] = x
-                        rec_t[i, n] = t
-                        rec_v[i, n] = v * scale
+                        if recording:
+                            rec_x[i, n] = x
+                            rec_t[i, n] = t
+                            rec_v[i, n] = v * scale
                         n += 1
                 S[i] = EXITED
                 break
@@ -275,9 +277,10 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
         cell = cn
         if frozen:
             scale = sign * spn
-        rec_x[i, n] = x
-        rec_t[i, n] = t
-        rec_v[i, n] = v * scale
+        if recording:
+            rec_x[i, n] = x
+            rec_t[i, n] = t
+            rec_v[i, n] = v * scale
         n += 1
         if sn > 0:
             S[i] = sn
@@ -299,17 +302,21 @@ def _advance_many(X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, fiel
         )
 
 
-def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params, integrator="rk4"):
+def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params, integrator="rk4",
+                      recording=True):
     """Advance the given particles (rows of the arrays, updated in place) by up to ``max_steps`` steps.
+
+    Without ``recording`` the record buffers are empty and only the counts are returned.
 
     ``dt`` holds each particle's suggested next step for the adaptive scheme (updated in place).
     Returns the recorded vertices: ``rec_x (N, max_steps, 3)``, ``rec_t (N, max_steps)``,
     ``rec_v (N, max_steps, 3)`` and ``counts (N,)`` (valid entries per row).
     """
     n = len(t)
-    rec_x = np.empty((n, max_steps, 3))
-    rec_t = np.empty((n, max_steps))
-    rec_v = np.empty((n, max_steps, 3))
+    width = max_steps if recording else 0
+    rec_x = np.empty((n, width, 3))
+    rec_t = np.empty((n, width))
+    rec_v = np.empty((n, width, 3))
     counts = np.zeros(n, np.int64)
     _advance_many(x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh, field,
                   params, TABLEAUS[integrator], rec_x, rec_t, rec_v, counts)

@@ -238,12 +238,14 @@ def advance(
         active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
         if active.size == 0:
             return
+        active = active[np.argsort(state.cell[active], kind="stable")]  # neighbours in memory work together
         x, t, v, h = state.x[active], state.t[active], state.v[active], state.h[active]
         cell, status = state.cell[active], state.status[active]
         sg = np.ones(active.size) if signs is None else np.ascontiguousarray(signs[active], dtype=np.float64)
         dts = state.dt[active]
+        chunk = CHUNK_STEPS if record is not None else 1 << 40  # without a recorder: no buffers, no chunks
         rec_x, rec_t, rec_v, counts = advance_particles(
-            x, t, v, h, cell, status, dts, sg, t_end, step, CHUNK_STEPS, mesh, args, params, integrator
+            x, t, v, h, cell, status, dts, sg, t_end, step, chunk, mesh, args, params, integrator, record is not None
         )
         state.x[active], state.t[active], state.v[active], state.h[active] = x, t, v, h
         state.cell[active], state.status[active], state.dt[active] = cell, status, dts

@@ -24,7 +24,7 @@ import scipy.sparse as sp
 
 from .errors import InputError
 
-__all__ = ["TetMesh", "decompose", "split_wedges", "face_neighbours", "BinGrid", "bin_grid", "grid_shape"]
+__all__ = ["TetMesh", "decompose", "morton_order", "split_wedges", "face_neighbours", "BinGrid", "bin_grid", "grid_shape"]
 
 TETRA, VOXEL, HEXAHEDRON, WEDGE, PYRAMID = 10, 11, 12, 13, 14
 
@@ -187,7 +187,23 @@ def decompose(points: np.ndarray, offsets: np.ndarray, connectivity: np.ndarray,
     vol = np.einsum("ij,ij->i", np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), p[:, 3] - p[:, 0])
     neg = vol < 0
     tet[neg] = tet[neg][:, [0, 2, 1, 3]]
-    return TetMesh(all_points, tet, parent, centres.tocsr())
+    # number the tetrahedra along a Morton (Z-order) curve of their centroids: neighbours in space are
+    # then mostly neighbours in memory, which is what point location and interpolation spend time on
+    order = morton_order(all_points[tet].mean(axis=1))
+    return TetMesh(all_points, tet[order], parent[order], centres.tocsr())
+
+
+def morton_order(xyz: np.ndarray, bits: int = 21) -> np.ndarray:
+    """Permutation that sorts points ``(N, 3)`` along a Morton curve over their bounding box."""
+    if len(xyz) == 0:
+        return np.zeros(0, np.int64)
+    lo, hi = xyz.min(axis=0), xyz.max(axis=0)
+    q = ((xyz - lo) / np.maximum(hi - lo, 1e-300) * (2**bits - 1)).astype(np.uint64)
+    code = np.zeros(len(xyz), np.uint64)
+    for b in range(bits):
+        for axis in range(3):
+            code |= ((q[:, axis] >> np.uint64(b)) & np.uint64(1)) << np.uint64(3 * b + axis)
+    return np.argsort(code, kind="stable")
 
 
 def face_neighbours(tets: np.ndarray) -> np.ndarray:
