@@ -25,6 +25,7 @@ from vtkmodules.vtkFiltersVerdict import vtkCellSizeFilter
 from vtkmodules.vtkIOXML import vtkXMLPolyDataReader, vtkXMLUnstructuredGridReader
 
 from vtkflow import demo
+from vtkflow.tetmesh import split_wedges
 
 BOX = demo.DOMAIN_BOUNDS
 BOX_VOLUME = (BOX[1] - BOX[0]) * (BOX[3] - BOX[2]) * (BOX[5] - BOX[4])
@@ -137,7 +138,7 @@ def test_wedge_split_positive_and_volume_preserving_for_every_labelling():
     wedges = labellings + offsets
     points = np.empty((wedges.size, 3))
     points[wedges.ravel()] = np.tile(prism, (len(labellings), 1))
-    tets = demo._split_wedges(wedges)
+    tets = split_wedges(wedges)
     grid = pv.UnstructuredGrid({pv.CellType.TETRA: tets}, points)
     volumes = _cell_sizes(grid).reshape(-1, 3)
     # Exact arithmetic on unit coordinates: each tet is 1/6, the prism 1/2; tolerance = round-off.

@@ -36,6 +36,7 @@ from vtkmodules.vtkCommonDataModel import vtkDataObject, vtkUnstructuredGrid
 from vtkmodules.vtkIOXML import vtkXMLPolyDataWriter, vtkXMLUnstructuredGridWriter, vtkXMLWriter
 
 from .output import atomic_path
+from .tetmesh import split_wedges
 
 __all__ = [
     "U_INF",
@@ -117,21 +118,6 @@ SNAPSHOT_PATTERN = "wake_{:04d}.vtu"
 COMPLETE_MARKER = ".complete"
 WING_FILE = "wing.vtp"
 _SNAPSHOT_RE = re.compile(r"^wake_\d{4,}\.vtu$")
-
-# Orientation-preserving relabellings of a wedge [a0, a1, a2, b0, b1, b2] (b_i above a_i):
-# row p brings local vertex p to position 0 (rotations of the triangles, and the top/bottom swap
-# combined with a reversal of the triangle order).
-_WEDGE_PERMUTATIONS = np.array(
-    [
-        [0, 1, 2, 3, 4, 5],
-        [1, 2, 0, 4, 5, 3],
-        [2, 0, 1, 5, 3, 4],
-        [3, 5, 4, 0, 2, 1],
-        [4, 3, 5, 1, 0, 2],
-        [5, 4, 3, 2, 1, 0],
-    ]
-)
-
 
 # --------------------------------------------------------------------------------------------
 # Flow
@@ -355,45 +341,12 @@ def _counter_clockwise(yz: np.ndarray, triangles: np.ndarray) -> np.ndarray:
     return out
 
 
-def _split_wedges(wedges: np.ndarray) -> np.ndarray:
-    """Split wedges into three positively oriented tetrahedra each, conformingly.
-
-    Each quadrilateral face is cut along the diagonal through its vertex of smallest global
-    index, so two cells sharing a quad cut it the same way (Dompierre, Labbe, Vallet & Camarero
-    1999, "How to subdivide pyramids, prisms and hexahedra into tetrahedra", Proc. 8th Int.
-    Meshing Roundtable).
-
-    Parameters
-    ----------
-    wedges : numpy.ndarray
-        ``(W, 6)`` vertex ids in VTK_WEDGE order ``[a0, a1, a2, b0, b1, b2]``: triangle
-        ``a`` with its right-hand normal pointing towards triangle ``b``, ``b_i`` joined to ``a_i``.
-
-    Returns
-    -------
-    numpy.ndarray
-        ``(3 W, 4)`` VTK_TETRA vertex ids; the three tetrahedra of wedge ``i`` are rows
-        ``3 i .. 3 i + 2``.
-    """
-    perm = _WEDGE_PERMUTATIONS[np.argmin(wedges, axis=1)]
-    w = np.take_along_axis(wedges, perm, axis=1)
-    a0, a1, a2, b0, b1, b2 = w.T
-    # The two quads at a0 are cut through a0; the opposite quad (a1, a2, b2, b1) by its own rule.
-    cut_a1_b2 = np.minimum(a1, b2) < np.minimum(a2, b1)
-    apex_of_base = np.where(cut_a1_b2, b2, b1)
-    third = np.where(cut_a1_b2[:, None], np.column_stack([a0, a1, b2, b1]), np.column_stack([a0, b1, a2, b2]))
-    tets = np.stack(
-        [np.column_stack([a0, b0, b1, b2]), np.column_stack([a0, a1, a2, apex_of_base]), third], axis=1
-    )
-    return tets.reshape(-1, 4)
-
-
 def build_mesh() -> pv.UnstructuredGrid:
     """Build the demo's conforming tetrahedron/wedge mesh of :data:`DOMAIN_BOUNDS`.
 
     A jittered, graded node set of the y-z rectangle (finer around the paths of the vortex axes)
     is Delaunay-triangulated and extruded along x into ``N_LAYERS`` layers of wedges; the first
-    ``N_TET_LAYERS`` layers are split into tetrahedra (see :func:`_split_wedges`). Tetrahedra
+    ``N_TET_LAYERS`` layers are split into tetrahedra (see :func:`vtkflow.tetmesh.split_wedges`). Tetrahedra
     and wedges meet at whole x = const triangles, so the mesh is conforming. Deterministic.
 
     Returns
@@ -410,7 +363,7 @@ def build_mesh() -> pv.UnstructuredGrid:
     )
     offsets = (np.arange(N_LAYERS, dtype=np.int64) * n_section)[:, None, None]
     wedges = np.concatenate([triangles[None] + offsets, triangles[None] + offsets + n_section], axis=2)
-    tets = _split_wedges(wedges[:N_TET_LAYERS].reshape(-1, 6))
+    tets = split_wedges(wedges[:N_TET_LAYERS].reshape(-1, 6))
     kept = wedges[N_TET_LAYERS:].reshape(-1, 6)
     return pv.UnstructuredGrid({pv.CellType.TETRA: tets, pv.CellType.WEDGE: kept}, points)
 
