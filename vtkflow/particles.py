@@ -1,4 +1,4 @@
-"""Particle advection, vectorised over particles: RK4 with steps bounded by the local cell size.
+"""Particle advection: state, fields, and the driver of the numba engine (with its NumPy twin).
 
 The velocity between two snapshots ``t_k < t_k+1`` is linear in time,
 ``u(x, t) = (1 - a) u_k(x) + a u_k+1(x)`` with ``a = (t - t_k) / (t_k+1 - t_k)``, and each snapshot is
@@ -8,7 +8,8 @@ Steps never straddle a snapshot time: the driver advances particles interval by 
 
 Every particle carries its own time, so particles released at different instants advance together.
 A step whose stages leave the mesh is halved until it is shorter than :data:`MIN_STEP` cells; then the
-particle is placed on the boundary by bisection along its velocity and stops with status ``exited``.
+particle is placed on the boundary (the numba engine: exact ray crossing of a boundary face; the NumPy
+twin: bisection) and stops with status ``exited``.
 
 Streamlines use the same integrator on the frozen, normalised field at one time (the "time" is then the
 arc length), see :func:`trace_streamlines`.
@@ -41,7 +42,7 @@ __all__ = [
 
 #: Shortest step, in local cell sizes, tried before a particle whose step leaves the mesh is declared exited.
 MIN_STEP = 1e-3
-#: Bisection steps that place an exiting particle on the boundary (precision: one cell / 2**BISECTIONS).
+#: Bisection steps of the NumPy twin's boundary exit (precision: one cell / 2**BISECTIONS).
 BISECTIONS = 40
 #: Streamlines stop where the speed falls below this fraction of the largest speed at their seeds.
 STALL_SPEED = 1e-6
