@@ -5,8 +5,8 @@
 * a conforming tetrahedral decomposition with face neighbours and a bin grid (:mod:`vtkflow.tetmesh`),
   used by the numba point locator of :mod:`vtkflow.kernels` to interpolate point arrays linearly in the
   tetrahedra (exact for fields linear in space, on every cell type);
-* the local cell size at each point (the smallest ``|volume|**(1/3)`` of the cells that use the point), which
-  bounds integration steps;
+* the local cell size at each point (the smallest size of the cells that use the point, a cell's size
+  being its bounding-box diagonal over sqrt(3)), which bounds integration steps;
 * a sparse cell-to-point averaging matrix (each point gets the plain mean of the cells that use it, as VTK's
   ``vtkCellDataToPointData`` does by default).
 
@@ -162,23 +162,17 @@ class Mesh:
         return self.locator.locate(points)[0] >= 0
 
     def _cell_sizes(self) -> np.ndarray:
-        f = _vtk.vtkCellSizeFilter()
-        f.SetInputData(self.grid)
-        for off in ("ComputeVertexCountOff", "ComputeLengthOff", "ComputeAreaOff", "ComputeSumOff"):
-            getattr(f, off)()
-        f.ComputeVolumeOn()
-        f.Update()
-        vol = np.abs(vtk_to_numpy(f.GetOutput().GetCellData().GetArray("Volume")).astype(np.float64))
-        size = np.cbrt(vol)
-        # Degenerate (zero-volume) cells: fall back to the longest edge of the cell's bounding box.
+        """Size of each cell: its bounding-box diagonal over sqrt(3), the edge of the cube with the same
+        diagonal (a hexahedron's edge; common practice for step control). Zero-size cells get the
+        smallest positive size of the mesh, so that no step bound is zero."""
+        pts = self.points[self.connectivity]
+        starts = self.offsets[:-1]
+        lo = np.minimum.reduceat(pts, starts, axis=0)
+        hi = np.maximum.reduceat(pts, starts, axis=0)
+        size = np.linalg.norm(hi - lo, axis=1) / np.sqrt(3.0)
         bad = ~(size > 0)
         if bad.any():
-            pts = self.points[self.connectivity]
-            lo = np.full((self.n_cells, 3), np.inf)
-            hi = np.full((self.n_cells, 3), -np.inf)
-            np.minimum.at(lo, self._cell_of_entry, pts)
-            np.maximum.at(hi, self._cell_of_entry, pts)
-            size[bad] = np.max(hi - lo, axis=1)[bad]
+            size[bad] = size[~bad].min() if (~bad).any() else 1.0
         return size
 
 
