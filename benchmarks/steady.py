@@ -6,7 +6,7 @@ mesh points; 10,000 seeds drawn uniformly in [0.25, 0.75]^3; forward streamlines
 classical RK4 at a quarter cell per step on both sides:
 
 * vtkflow: ``particles.trace_streamlines(field, 0.0, seeds, ids, "forward", 0.25, length)`` (step: a quarter
-  of the local cell size ``|volume|**(1/3)``); mesh preparation (``Mesh(grid)``) is timed apart;
+  of the local cell size, its bounding-box diagonal over sqrt(3)); mesh preparation (``Mesh(grid)``) is timed apart;
 * VTK: ``vtkStreamTracer`` (RK4, ``CELL_LENGTH_UNIT`` step 0.25, i.e. a quarter of the cell's bounding-box
   diagonal, ``MaximumPropagation`` = the same arc length), with each cell locator this VTK offers; its
   locator is built by a first, negligible update and timed apart, like vtkflow's preparation. A third run
@@ -236,7 +236,7 @@ def main() -> None:
             note=f"VTK: {best['locator']} locator")
     rep.add("evaluations/s (vtkflow kernel only)", 4 * steps_ours / kernel["t"] / 1e6, rate_vtk / 1e6, "M/s")
     rep.add("tracing wall time", t_ours, best["trace"], "s")
-    rep.add("RK4 steps", steps_ours, best["steps"], "", note="cell = |V|^(1/3) vs bbox diagonal")
+    rep.add("RK4 steps", steps_ours, best["steps"], "", note="cell = bbox diagonal / sqrt(3) vs bbox diagonal")
     rep.add("preparation (Mesh / VTK locator build)", t_prep, best["setup"], "s")
     if e_ours.size:
         rep.add("end-point error, median", np.median(e_ours), np.median(e_vtk), "", note=f"{ok.sum()} seeds")
