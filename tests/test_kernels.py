@@ -229,3 +229,16 @@ def test_inverse_edge_matrices_match_numpy():
     edges = np.stack([p[:, 1] - p[:, 0], p[:, 2] - p[:, 0], p[:, 3] - p[:, 0]], axis=2)
     np.testing.assert_allclose(tinv, np.linalg.inv(edges), rtol=1e-10, atol=1e-12)
     np.testing.assert_array_equal(p0, p[:, 0])
+
+
+def test_morton_order_interleaves_bits():
+    """Z-order of the 2 x 2 x 2 corner cells is x fastest, then y, then z (bit interleaving, x lowest;
+    Morton 1966), and a finer grid keeps each octant's points together."""
+    from vtkflow.tetmesh import morton_order
+
+    corners = np.array([[x, y, z] for z in (0, 1) for y in (0, 1) for x in (0, 1)], float)
+    shuffled = corners[[5, 2, 7, 0, 3, 6, 1, 4]]
+    assert np.array_equal(shuffled[morton_order(shuffled)], corners)
+    g = np.stack(np.meshgrid(*[np.arange(4.0)] * 3, indexing="ij"), axis=-1).reshape(-1, 3)
+    octant = (g[morton_order(g)] >= 2) @ np.array([1, 2, 4])
+    assert np.all(np.diff(octant) >= 0)  # octants come one after the other
