@@ -8,7 +8,7 @@ what a run does once per series — and its parts, each timed on its own:
 
 * VTK copy and arrays: the structure copy, points, offsets, connectivity, cell types (``Mesh.__init__``);
 * cell sizes: ``Mesh._cell_sizes`` (VTK's cell-size filter) and the smallest size per point;
-* ``tetmesh.decompose`` (conforming tetrahedra), ``tetmesh.face_neighbours``, ``kernels.build_bins``;
+* ``tetmesh.decompose`` (conforming tetrahedra), ``kernels.neighbours``, ``kernels.build_bins``;
 * the inverse edge matrices of the point locator (``kernels.tet_inverses``).
 
 Ratio: preparation / read; the goal is <= 1.0. The fastest of ``--repeat`` runs counts on both sides; the
@@ -65,8 +65,8 @@ def parts(grid) -> dict[str, float]:
     from vtkflow import _vtk
     from vtkflow._vtk import vtk_to_numpy
     from vtkflow.mesh import Mesh, cell_types
-    from vtkflow.kernels import build_bins, tet_inverses
-    from vtkflow.tetmesh import decompose, face_neighbours
+    from vtkflow.kernels import build_bins, neighbours, tet_inverses
+    from vtkflow.tetmesh import decompose
 
     out = {}
     t0 = time.perf_counter()
@@ -92,7 +92,7 @@ def parts(grid) -> dict[str, float]:
     out["tetmesh.decompose"], tm = timed(lambda: decompose(m.points, m.offsets, m.connectivity, m.cell_types))
 
     out["Locator inverse matrices"], _ = timed(lambda: tet_inverses(tm.points, tm.tets))
-    out["tetmesh.face_neighbours"], _ = timed(lambda: face_neighbours(tm.tets))
+    out["kernels.neighbours"], _ = timed(lambda: neighbours(tm.tets))
     out["kernels.build_bins"], bins = timed(lambda: build_bins(tm.points, tm.tets))
     out["_bin_entries"] = float(len(bins.items))
     return out

@@ -242,3 +242,13 @@ def test_morton_order_interleaves_bits():
     g = np.stack(np.meshgrid(*[np.arange(4.0)] * 3, indexing="ij"), axis=-1).reshape(-1, 3)
     octant = (g[morton_order(g)] >= 2) @ np.array([1, 2, 4])
     assert np.all(np.diff(octant) >= 0)  # octants come one after the other
+
+
+def test_linear_time_neighbours_equal_their_numpy_twin():
+    """The locator's face neighbours (bucketed by smallest vertex, numba) equal the sort-based NumPy
+    twin on a conforming mixed mesh and on a tetrahedral box."""
+    from vtkflow.kernels import neighbours
+
+    for grid in (mixed_grid(), box_mesh((0, 0, 0), (1, 1, 1), (4, 3, 2), "tetra")):
+        tets = Mesh(grid).tetmesh.tets
+        assert np.array_equal(neighbours(tets), face_neighbours(tets))

@@ -16,9 +16,9 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from .tetmesh import BinGrid, TetMesh, face_neighbours, grid_shape
+from .tetmesh import BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "build_bins", "tet_inverses", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "build_bins", "neighbours", "tet_inverses", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -175,6 +175,57 @@ def _inverses(points, tets, p0, tinv):
                 tinv[t, r, c] = tinv[t, r, c] / det if abs(det) > 1e-300 else np.inf
 
 
+@njit(cache=True)
+def _neighbours(tets, n_points, nbr):
+    """Match faces that share their three vertices: faces are bucketed by their smallest vertex (a
+    counting sort, linear time), then paired within each small bucket."""
+    m = tets.shape[0]
+    opp = np.array([[1, 2, 3], [0, 2, 3], [0, 1, 3], [0, 1, 2]])
+    lo = np.empty(4 * m, np.int64)
+    mid = np.empty(4 * m, np.int64)
+    hi = np.empty(4 * m, np.int64)
+    for t in range(m):
+        for f in range(4):
+            a, b, c = tets[t, opp[f, 0]], tets[t, opp[f, 1]], tets[t, opp[f, 2]]
+            if a > b:
+                a, b = b, a
+            if b > c:
+                b, c = c, b
+            if a > b:
+                a, b = b, a
+            lo[4 * t + f], mid[4 * t + f], hi[4 * t + f] = a, b, c
+    start = np.zeros(n_points + 1, np.int64)
+    for i in range(4 * m):
+        start[lo[i] + 1] += 1
+    for v in range(n_points):
+        start[v + 1] += start[v]
+    fill = start[:-1].copy()
+    faces = np.empty(4 * m, np.int64)
+    for i in range(4 * m):
+        faces[fill[lo[i]]] = i
+        fill[lo[i]] += 1
+    nbr[:] = -1
+    for v in range(n_points):
+        for p in range(start[v], start[v + 1]):
+            i = faces[p]
+            if nbr[i // 4, i % 4] >= 0:
+                continue
+            for q in range(p + 1, start[v + 1]):
+                j = faces[q]
+                if mid[j] == mid[i] and hi[j] == hi[i] and nbr[j // 4, j % 4] < 0:
+                    nbr[i // 4, i % 4] = j // 4
+                    nbr[j // 4, j % 4] = i // 4
+                    break
+
+
+def neighbours(tets: np.ndarray) -> np.ndarray:
+    """Face neighbours as :func:`vtkflow.tetmesh.face_neighbours` (its NumPy twin), in linear time."""
+    tets = np.ascontiguousarray(tets, dtype=np.int64)
+    nbr = np.empty((len(tets), 4), np.int64)
+    _neighbours(tets, int(tets.max()) + 1 if len(tets) else 0, nbr)
+    return nbr
+
+
 def tet_inverses(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """First vertex ``(M, 3)`` and inverse edge matrix ``(M, 3, 3)`` of each tetrahedron: barycentric
     coordinates are ``tinv @ (x - p0)``. Degenerate tetrahedra get infinite inverses (never contain)."""
@@ -213,7 +264,7 @@ class Locator:
     def __init__(self, tm: TetMesh) -> None:
         self.tm = tm
         self.p0, self.tinv = tet_inverses(tm.points, tm.tets)
-        self.nbr = face_neighbours(tm.tets)
+        self.nbr = neighbours(tm.tets)
         self.bins: BinGrid = build_bins(tm.points, tm.tets)
         self.conn = np.ascontiguousarray(tm.tets)
 
