@@ -252,3 +252,19 @@ def test_linear_time_neighbours_equal_their_numpy_twin():
     for grid in (mixed_grid(), box_mesh((0, 0, 0), (1, 1, 1), (4, 3, 2), "tetra")):
         tets = Mesh(grid).tetmesh.tets
         assert np.array_equal(neighbours(tets), face_neighbours(tets))
+
+
+def test_cell_and_point_sizes_match_numpy():
+    """Cell sizes (bounding-box diagonal / sqrt(3)) and point sizes (smallest adjacent cell) from the
+    numba loop equal a NumPy computation of the same definition."""
+    grid = mixed_grid()
+    mesh = Mesh(grid)
+    pts = mesh.points[mesh.connectivity]
+    lo = np.minimum.reduceat(pts, mesh.offsets[:-1], axis=0)
+    hi = np.maximum.reduceat(pts, mesh.offsets[:-1], axis=0)
+    cs = np.linalg.norm(hi - lo, axis=1) / np.sqrt(3.0)
+    ps = np.full(mesh.n_points, np.inf)
+    np.minimum.at(ps, mesh.connectivity, np.repeat(cs, np.diff(mesh.offsets)))
+    np.testing.assert_allclose(mesh.cell_size, cs, rtol=1e-14)
+    np.testing.assert_allclose(mesh.point_size, ps, rtol=1e-14)
+    assert mesh.cell_size[0] == pytest.approx(1.0)  # the unit hexahedron's edge

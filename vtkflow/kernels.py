@@ -18,7 +18,7 @@ from numba import njit, prange
 
 from .tetmesh import BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "build_bins", "neighbours", "tet_inverses", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -224,6 +224,34 @@ def neighbours(tets: np.ndarray) -> np.ndarray:
     nbr = np.empty((len(tets), 4), np.int64)
     _neighbours(tets, int(tets.max()) + 1 if len(tets) else 0, nbr)
     return nbr
+
+
+@njit(cache=True)
+def _cell_sizes(points, offsets, conn, cell_size, point_size):
+    for c in range(offsets.shape[0] - 1):
+        d2 = 0.0
+        for axis in range(3):
+            a = np.inf
+            b = -np.inf
+            for k in range(offsets[c], offsets[c + 1]):
+                v = points[conn[k], axis]
+                a = min(a, v)
+                b = max(b, v)
+            d2 += (b - a) ** 2
+        cell_size[c] = np.sqrt(d2 / 3.0)
+    point_size[:] = np.inf
+    for c in range(offsets.shape[0] - 1):
+        for k in range(offsets[c], offsets[c + 1]):
+            point_size[conn[k]] = min(point_size[conn[k]], cell_size[c])
+
+
+def cell_sizes(points: np.ndarray, offsets: np.ndarray, conn: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Size of each cell (bounding-box diagonal over sqrt(3)) and, at each point, the smallest size of
+    the cells that use it."""
+    cs = np.empty(len(offsets) - 1)
+    ps = np.empty(len(points))
+    _cell_sizes(np.ascontiguousarray(points, dtype=np.float64), offsets, conn, cs, ps)
+    return cs, ps
 
 
 def tet_inverses(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

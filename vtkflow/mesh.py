@@ -22,7 +22,7 @@ import scipy.sparse as sp
 
 from . import _vtk
 from ._vtk import vtk_to_numpy
-from .kernels import Locator
+from .kernels import Locator, cell_sizes
 from .tetmesh import decompose
 
 __all__ = ["Mesh", "CELL_TYPE_NAMES", "cell_types"]
@@ -68,9 +68,7 @@ class Mesh:
         self.connectivity = vtk_to_numpy(cells.GetConnectivityArray()).astype(np.int64)
         self.cell_types = cell_types(topo)
         self._cell_of_entry = np.repeat(np.arange(self.n_cells), np.diff(self.offsets))
-        self.cell_size = self._cell_sizes()
-        self.point_size = np.full(self.n_points, np.inf)
-        np.minimum.at(self.point_size, self.connectivity, self.cell_size[self._cell_of_entry])
+        self.cell_size, self.point_size = self._cell_sizes()
         self._to_point: sp.csr_matrix | None = None
         self.tetmesh = decompose(self.points, self.offsets, self.connectivity, self.cell_types)
         self.locator = Locator(self.tetmesh)
@@ -161,19 +159,17 @@ class Mesh:
         """Which of ``points`` (``(N, 3)``) lie in the mesh (faces, edges and vertices included)."""
         return self.locator.locate(points)[0] >= 0
 
-    def _cell_sizes(self) -> np.ndarray:
+    def _cell_sizes(self) -> tuple[np.ndarray, np.ndarray]:
         """Size of each cell: its bounding-box diagonal over sqrt(3), the edge of the cube with the same
-        diagonal (a hexahedron's edge; common practice for step control). Zero-size cells get the
-        smallest positive size of the mesh, so that no step bound is zero."""
-        pts = self.points[self.connectivity]
-        starts = self.offsets[:-1]
-        lo = np.minimum.reduceat(pts, starts, axis=0)
-        hi = np.maximum.reduceat(pts, starts, axis=0)
-        size = np.linalg.norm(hi - lo, axis=1) / np.sqrt(3.0)
-        bad = ~(size > 0)
-        if bad.any():
-            size[bad] = size[~bad].min() if (~bad).any() else 1.0
-        return size
+        diagonal (a hexahedron's edge; common practice for step control); and at each point the smallest
+        size of the cells that use it. Zero sizes get the smallest positive size of the mesh, so that no
+        step bound is zero."""
+        cell, point = cell_sizes(self.points, self.offsets, self.connectivity)
+        positive = cell[cell > 0]
+        floor = positive.min() if positive.size else 1.0
+        cell[~(cell > 0)] = floor
+        point[~(point > 0) | ~np.isfinite(point)] = floor
+        return cell, point
 
 
 def cell_types(grid: Any) -> np.ndarray:
