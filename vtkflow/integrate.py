@@ -24,13 +24,16 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from .kernels import BARY_TOL, _bary, _locate
+from .kernels import _bary, _locate
+from .particles import Status
 
-__all__ = ["advance_particles", "TABLEAUS", "ACTIVE", "EXITED", "STALLED", "NAN", "BARY_TOL"]
+__all__ = ["advance_particles", "TABLEAUS"]
 
-# status values (the same as vtkflow.particles.Status)
-ACTIVE, EXITED, STALLED, NAN = 0, 1, 2, 3
+# status values as plain ints for the kernels; OUTSIDE marks a sample outside the mesh
+ACTIVE, EXITED, STALLED, NAN = int(Status.active), int(Status.exited), int(Status.stalled), int(Status.nan)
 OUTSIDE = -1
+#: Most tetrahedra a boundary-exit ray crosses before giving up (a guard against cycles).
+MAX_RAY = 100_000
 
 
 @njit(cache=True, nogil=True)
@@ -87,10 +90,10 @@ def _ray_exit(x, d, cell, mesh, bary):
     p0, tinv, nbr, conn, origin, spacing, dims, start, items = mesh
     s_done = 0.0
     t = cell
-    for _ in range(100_000):
+    r = np.empty(4)
+    for _ in range(MAX_RAY):
         _bary(x, t, p0, tinv, bary)
         # rate of change of each barycentric coordinate along d
-        r = np.empty(4)
         r[1] = tinv[t, 0, 0] * d[0] + tinv[t, 0, 1] * d[1] + tinv[t, 0, 2] * d[2]
         r[2] = tinv[t, 1, 0] * d[0] + tinv[t, 1, 1] * d[1] + tinv[t, 1, 2] * d[2]
         r[3] = tinv[t, 2, 0] * d[0] + tinv[t, 2, 1] * d[1] + tinv[t, 2, 2] * d[2]

@@ -64,14 +64,14 @@ def _walk(x, start, p0, tinv, nbr, bary):
 @njit(cache=True, nogil=True)
 def _search_bins(x, origin, spacing, dims, start, items, p0, tinv, bary):
     """The tetrahedron containing ``x`` among those listed in its bin, or -1."""
-    idx = np.empty(3, np.int64)
+    b = 0
+    stride = 1
     for k in range(3):
         s = (x[k] - origin[k]) / spacing[k]
         if not (s >= -1e-9 * dims[k] and s <= dims[k] * (1.0 + 1e-9)):
             return -1
-        i = int(s)
-        idx[k] = min(max(i, 0), dims[k] - 1)
-    b = idx[0] + dims[0] * (idx[1] + dims[1] * idx[2])
+        b += min(max(int(s), 0), dims[k] - 1) * stride
+        stride *= dims[k]
     best, best_val = -1, -np.inf
     for j in range(start[b], start[b + 1]):
         t = items[j]
@@ -96,11 +96,11 @@ def _locate(x, hint, p0, tinv, nbr, origin, spacing, dims, start, items, bary):
 @njit(cache=True, parallel=True)
 def _locate_many(xs, hints, p0, tinv, nbr, origin, spacing, dims, start, items, tets_out, bary_out):
     for i in prange(xs.shape[0]):
-        bary = np.empty(4)
+        bary = bary_out[i]  # the point's own output row is its scratch
         t = _locate(xs[i], hints[i], p0, tinv, nbr, origin, spacing, dims, start, items, bary)
         tets_out[i] = t
-        for k in range(4):
-            bary_out[i, k] = bary[k] if t >= 0 else 0.0
+        if t < 0:
+            bary[:] = 0.0
 
 
 @njit(cache=True, parallel=True)

@@ -99,8 +99,6 @@ class ParticleTracer:
         Local error per step of ``dopri5``, in length units.
     """
 
-    particles = True
-
     def __init__(
         self,
         name: str,
@@ -203,8 +201,6 @@ class ParticleTracer:
 
 class StreamlineTracer:
     """Streamlines of the frozen field at each output frame, from the release points inside the mesh."""
-
-    particles = False
 
     def __init__(
         self,
