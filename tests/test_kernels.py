@@ -11,7 +11,7 @@ import pytest
 import pyvista as pv
 
 from flows import box_mesh
-from vtkflow.kernels import BARY_TOL, Locator
+from vtkflow.kernels import BARY_TOL, Locator, group_order
 from vtkflow.mesh import Mesh
 from vtkflow.tetmesh import decompose, face_neighbours
 
@@ -268,3 +268,19 @@ def test_cell_and_point_sizes_match_numpy():
     np.testing.assert_allclose(mesh.cell_size, cs, rtol=1e-14)
     np.testing.assert_allclose(mesh.point_size, ps, rtol=1e-14)
     assert mesh.cell_size[0] == pytest.approx(1.0)  # the unit hexahedron's edge
+
+
+def test_group_order_matches_stable_argsort():
+    """The linear-time grouping equals NumPy's stable argsort (its twin); flagged groups come reversed."""
+    rng = np.random.default_rng(7)
+    keys = rng.integers(0, 50, 5000)
+    order, sizes = group_order(keys, 60)
+    np.testing.assert_array_equal(order, np.argsort(keys, kind="stable"))
+    np.testing.assert_array_equal(sizes, np.bincount(keys, minlength=60))
+    flip = np.arange(60) % 3 == 0
+    order, _ = group_order(keys, 60, flip)
+    expect = np.argsort(keys, kind="stable")
+    for k in np.flatnonzero(flip):
+        sel = keys[expect] == k
+        expect[sel] = expect[sel][::-1]
+    np.testing.assert_array_equal(order, expect)

@@ -27,7 +27,7 @@ from numba import njit, prange
 from .kernels import _bary, _locate
 from .particles import Status
 
-__all__ = ["advance_particles", "TABLEAUS"]
+__all__ = ["advance_particles", "RecordBuffers", "TABLEAUS"]
 
 # status values as plain ints for the kernels; OUTSIDE marks a sample outside the mesh
 ACTIVE, EXITED, STALLED, NAN = int(Status.active), int(Status.exited), int(Status.stalled), int(Status.nan)
@@ -36,50 +36,56 @@ OUTSIDE = -1
 MAX_RAY = 100_000
 
 
-@njit(cache=True, nogil=True)
-def _sample(x, t, hint, mesh, field, sign, v_out, bary):
+@njit(cache=True, nogil=True, inline="always")
+def _sample(x, t, hint, mesh, field, sign, v_out, bary, need_h=True):
     """Velocity at (x, t) into ``v_out``; returns (tetrahedron or -1, local cell size, stop code, speed)
-    where speed is that of the velocity itself (in frozen mode ``v_out`` is its unit tangent)."""
-    p0, tinv, nbr, conn, origin, spacing, dims, start, items = mesh
+    where speed is that of the velocity itself (in frozen mode ``v_out`` is its unit tangent). The cell
+    size is interpolated only when ``need_h`` (0.0 otherwise), and a snapshot of zero weight is not read."""
+    geom, nbr, conn, origin, spacing, dims, start, items = mesh
     values, t0, t1, frozen, time, floor = field
-    cell = _locate(x, hint, p0, tinv, nbr, origin, spacing, dims, start, items, bary)
+    cell = _locate(x, hint, geom, nbr, origin, spacing, dims, start, items, bary)
     if cell < 0:
-        v_out[:] = 0.0
+        v_out[0] = v_out[1] = v_out[2] = 0.0
         return -1, 0.0, OUTSIDE, 0.0
     tt = time if frozen else t
     a = 0.0
     if t1 != t0:
         a = min(max((tt - t0) / (t1 - t0), 0.0), 1.0)
-    h = 0.0
-    bad = False
-    for c in range(3):
-        u0 = 0.0
-        u1 = 0.0
-        for k in range(4):
-            u0 += bary[k] * values[conn[cell, k], c]
-            u1 += bary[k] * values[conn[cell, k], 3 + c]
-        w = 0.0
-        if a < 1.0:
-            if not np.isfinite(u0):
-                bad = True
-            w += (1.0 - a) * u0
+    b0, b1, b2, b3 = bary[0], bary[1], bary[2], bary[3]
+    n0, n1, n2, n3 = conn[cell, 0], conn[cell, 1], conn[cell, 2], conn[cell, 3]
+    w0 = 0.0
+    w1 = 0.0
+    w2 = 0.0
+    if a < 1.0:  # the earlier snapshot: columns 0..2
+        w0 = b0 * values[n0, 0] + b1 * values[n1, 0] + b2 * values[n2, 0] + b3 * values[n3, 0]
+        w1 = b0 * values[n0, 1] + b1 * values[n1, 1] + b2 * values[n2, 1] + b3 * values[n3, 1]
+        w2 = b0 * values[n0, 2] + b1 * values[n1, 2] + b2 * values[n2, 2] + b3 * values[n3, 2]
         if a > 0.0:
-            if not np.isfinite(u1):
-                bad = True
-            w += a * u1
-        v_out[c] = w
-    for k in range(4):
-        h += bary[k] * values[conn[cell, k], 6]
-    if bad:
-        v_out[:] = 0.0
+            w0 *= 1.0 - a
+            w1 *= 1.0 - a
+            w2 *= 1.0 - a
+    if a > 0.0:  # the later snapshot: columns 3..5
+        w0 += a * (b0 * values[n0, 3] + b1 * values[n1, 3] + b2 * values[n2, 3] + b3 * values[n3, 3])
+        w1 += a * (b0 * values[n0, 4] + b1 * values[n1, 4] + b2 * values[n2, 4] + b3 * values[n3, 4])
+        w2 += a * (b0 * values[n0, 5] + b1 * values[n1, 5] + b2 * values[n2, 5] + b3 * values[n3, 5])
+    h = 0.0
+    if need_h:
+        h = b0 * values[n0, 6] + b1 * values[n1, 6] + b2 * values[n2, 6] + b3 * values[n3, 6]
+    if not (np.isfinite(w0) and np.isfinite(w1) and np.isfinite(w2)):
+        v_out[0] = v_out[1] = v_out[2] = 0.0
         return cell, h, NAN, 0.0
-    speed = np.sqrt(v_out[0] ** 2 + v_out[1] ** 2 + v_out[2] ** 2)
+    speed = np.sqrt(w0 * w0 + w1 * w1 + w2 * w2)
     if frozen:
         if not speed > floor:
-            v_out[:] = 0.0
+            v_out[0] = v_out[1] = v_out[2] = 0.0
             return cell, h, STALLED, 0.0
-        for c in range(3):
-            v_out[c] = sign * v_out[c] / speed
+        f = sign / speed
+        w0 *= f
+        w1 *= f
+        w2 *= f
+    v_out[0] = w0
+    v_out[1] = w1
+    v_out[2] = w2
     return cell, h, ACTIVE, speed
 
 
@@ -87,16 +93,16 @@ def _sample(x, t, hint, mesh, field, sign, v_out, bary):
 def _ray_exit(x, d, cell, mesh, bary):
     """Distance along the unit direction ``d`` from ``x`` (in tetrahedron ``cell``) to the boundary, by
     traversing tetrahedra along the ray; -1.0 if no boundary face is met within MAX_RAY tetrahedra."""
-    p0, tinv, nbr, conn, origin, spacing, dims, start, items = mesh
+    geom, nbr, conn, origin, spacing, dims, start, items = mesh
     s_done = 0.0
     t = cell
     r = np.empty(4)
     for _ in range(MAX_RAY):
-        _bary(x, t, p0, tinv, bary)
+        _bary(x, t, geom, bary)
         # rate of change of each barycentric coordinate along d
-        r[1] = tinv[t, 0, 0] * d[0] + tinv[t, 0, 1] * d[1] + tinv[t, 0, 2] * d[2]
-        r[2] = tinv[t, 1, 0] * d[0] + tinv[t, 1, 1] * d[1] + tinv[t, 1, 2] * d[2]
-        r[3] = tinv[t, 2, 0] * d[0] + tinv[t, 2, 1] * d[1] + tinv[t, 2, 2] * d[2]
+        r[1] = geom[t, 3] * d[0] + geom[t, 4] * d[1] + geom[t, 5] * d[2]
+        r[2] = geom[t, 6] * d[0] + geom[t, 7] * d[1] + geom[t, 8] * d[2]
+        r[3] = geom[t, 9] * d[0] + geom[t, 10] * d[1] + geom[t, 11] * d[2]
         r[0] = -(r[1] + r[2] + r[3])
         best, f = np.inf, -1
         for k in range(4):
@@ -144,6 +150,14 @@ DP_E = np.array([
 TABLEAUS = {"rk4": (RK4_C, RK4_A, RK4_B, RK4_E, False), "dopri5": (DP_C, DP_A, DP_B, DP_E, True)}
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _record(i, n, x, t, v, scale, rec_x, rec_t, rec_v):
+    for c in range(3):
+        rec_x[i, n, c] = x[c]
+        rec_v[i, n, c] = v[c] * scale
+    rec_t[i, n] = t
+
+
 @njit(cache=True, nogil=True)
 def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t, rec_v):
     min_step, max_growth, tol, rel_tol = params
@@ -163,8 +177,8 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
     cells = np.empty(ns, np.int64)
     codes = np.empty(ns, np.int64)
     if cell < 0:  # no hint yet (just released): locate through the bins
-        p0, tinv, nbr, conn, origin, spacing, dims, start, items = mesh
-        cell = _locate(x, -1, p0, tinv, nbr, origin, spacing, dims, start, items, bary)
+        geom, nbr, conn, origin, spacing, dims, start, items = mesh
+        cell = _locate(x, -1, geom, nbr, origin, spacing, dims, start, items, bary)
         if cell < 0:
             S[i] = EXITED
             C[i] = cell
@@ -199,7 +213,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
                 for m in range(j):
                     acc += aa[j, m] * k[m, c]
                 y[c] = x[c] + dt * acc
-            cj, hj, sj, _ = _sample(y, t + cc[j] * dt, cells[j - 1], mesh, field, sign, k[j], bary)
+            cj, _, sj, _ = _sample(y, t + cc[j] * dt, cells[j - 1], mesh, field, sign, k[j], bary, False)
             cells[j] = cj
             codes[j] = sj
             if cj < 0:
@@ -239,9 +253,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
                         x = x + dist * d
                         t = min(t + dist / ms, t_end)
                         if recording:
-                            rec_x[i, n] = x
-                            rec_t[i, n] = t
-                            rec_v[i, n] = v * scale
+                            _record(i, n, x, t, v, scale, rec_x, rec_t, rec_v)
                         n += 1
                 S[i] = EXITED
                 break
@@ -281,9 +293,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
         if frozen:
             scale = sign * spn
         if recording:
-            rec_x[i, n] = x
-            rec_t[i, n] = t
-            rec_v[i, n] = v * scale
+            _record(i, n, x, t, v, scale, rec_x, rec_t, rec_v)
         n += 1
         if sn > 0:
             S[i] = sn
@@ -305,22 +315,59 @@ def _advance_many(X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, fiel
         )
 
 
+@njit(cache=True, parallel=True)
+def _compact(rec_x, rec_t, rec_v, counts, first, rows, x, t, v):
+    """Copy the valid records of each particle (``counts[i]`` from row ``i``) to flat arrays from ``first[i]``."""
+    for i in prange(counts.shape[0]):
+        for k in range(counts[i]):
+            j = first[i] + k
+            rows[j] = i
+            t[j] = rec_t[i, k]
+            for c in range(3):
+                x[j, c] = rec_x[i, k, c]
+                v[j, c] = rec_v[i, k, c]
+
+
+class RecordBuffers:
+    """Per-particle record buffers of ``width`` steps, kept across calls (grown when more particles come),
+    so that a long run does not fault in fresh pages for every chunk of steps."""
+
+    def __init__(self, width: int) -> None:
+        self.width = int(width)
+        self.x = np.empty((0, self.width, 3))
+        self.t = np.empty((0, self.width))
+        self.v = np.empty((0, self.width, 3))
+
+    def take(self, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        if len(self.t) < n:
+            self.x = np.empty((n, self.width, 3))
+            self.t = np.empty((n, self.width))
+            self.v = np.empty((n, self.width, 3))
+        return self.x[:n], self.t[:n], self.v[:n]
+
+
+_NO_RECORDS = np.empty((0, 0, 3)), np.empty((0, 0)), np.empty((0, 0, 3))
+
+
 def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params, integrator="rk4",
-                      recording=True):
+                      buffers=None):
     """Advance the given particles (rows of the arrays, updated in place) by up to ``max_steps`` steps.
 
-    Without ``recording`` the record buffers are empty and only the counts are returned.
-
     ``dt`` holds each particle's suggested next step for the adaptive scheme (updated in place).
-    Returns the recorded vertices: ``rec_x (N, max_steps, 3)``, ``rec_t (N, max_steps)``,
-    ``rec_v (N, max_steps, 3)`` and ``counts (N,)`` (valid entries per row).
+    With ``buffers`` (a :class:`RecordBuffers` of width ``max_steps``) every accepted step is recorded;
+    returns ``(rows, x, t, v)``: the records, flat, grouped by particle (``rows`` indexes the given
+    arrays) and in time order within a particle. Without, returns ``None``.
     """
     n = len(t)
-    width = max_steps if recording else 0
-    rec_x = np.empty((n, width, 3))
-    rec_t = np.empty((n, width))
-    rec_v = np.empty((n, width, 3))
+    rec = _NO_RECORDS if buffers is None else buffers.take(n)
     counts = np.zeros(n, np.int64)
     _advance_many(x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh, field,
-                  params, TABLEAUS[integrator], rec_x, rec_t, rec_v, counts)
-    return rec_x, rec_t, rec_v, counts
+                  params, TABLEAUS[integrator], *rec, counts)
+    if buffers is None:
+        return None
+    first = np.zeros(n, np.int64)
+    np.cumsum(counts[:-1], out=first[1:])
+    total = int(counts.sum())
+    out = np.empty(total, np.int64), np.empty((total, 3)), np.empty(total), np.empty((total, 3))
+    _compact(*rec, counts, first, out[0], out[1], out[2], out[3])
+    return out

@@ -16,9 +16,10 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from .errors import InputError
 from .tetmesh import BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "group_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -27,15 +28,18 @@ BARY_TOL = 1e-12
 MAX_WALK = 256
 
 
-@njit(cache=True, nogil=True)
-def _bary(x, t, p0, tinv, out):
-    """Barycentric coordinates of ``x`` in tetrahedron ``t`` into ``out`` (4,); returns the smallest."""
-    d0 = x[0] - p0[t, 0]
-    d1 = x[1] - p0[t, 1]
-    d2 = x[2] - p0[t, 2]
-    l1 = tinv[t, 0, 0] * d0 + tinv[t, 0, 1] * d1 + tinv[t, 0, 2] * d2
-    l2 = tinv[t, 1, 0] * d0 + tinv[t, 1, 1] * d1 + tinv[t, 1, 2] * d2
-    l3 = tinv[t, 2, 0] * d0 + tinv[t, 2, 1] * d1 + tinv[t, 2, 2] * d2
+@njit(cache=True, nogil=True, inline="always")
+def _bary(x, t, geom, out):
+    """Barycentric coordinates of ``x`` in tetrahedron ``t`` into ``out`` (4,); returns the smallest.
+
+    ``geom[t]`` holds the tetrahedron's first vertex (0:3) and its inverse edge matrix, row by row (3:12):
+    one contiguous 96-byte record, so that a tetrahedron costs the walk one or two cache lines."""
+    d0 = x[0] - geom[t, 0]
+    d1 = x[1] - geom[t, 1]
+    d2 = x[2] - geom[t, 2]
+    l1 = geom[t, 3] * d0 + geom[t, 4] * d1 + geom[t, 5] * d2
+    l2 = geom[t, 6] * d0 + geom[t, 7] * d1 + geom[t, 8] * d2
+    l3 = geom[t, 9] * d0 + geom[t, 10] * d1 + geom[t, 11] * d2
     out[0] = 1.0 - l1 - l2 - l3
     out[1] = l1
     out[2] = l2
@@ -43,12 +47,12 @@ def _bary(x, t, p0, tinv, out):
     return min(min(out[0], out[1]), min(out[2], out[3]))
 
 
-@njit(cache=True, nogil=True)
-def _walk(x, start, p0, tinv, nbr, bary):
+@njit(cache=True, nogil=True, inline="always")
+def _walk(x, start, geom, nbr, bary):
     """Walk from ``start`` toward ``x``: the containing tetrahedron, or -1 at a boundary face, -2 if lost."""
     t = start
     for _ in range(MAX_WALK):
-        if _bary(x, t, p0, tinv, bary) >= -BARY_TOL:
+        if _bary(x, t, geom, bary) >= -BARY_TOL:
             return t
         f = 0
         for i in range(1, 4):
@@ -61,8 +65,8 @@ def _walk(x, start, p0, tinv, nbr, bary):
     return -2
 
 
-@njit(cache=True, nogil=True)
-def _search_bins(x, origin, spacing, dims, start, items, p0, tinv, bary):
+@njit(cache=True, nogil=True, inline="always")
+def _search_bins(x, origin, spacing, dims, start, items, geom, bary):
     """The tetrahedron containing ``x`` among those listed in its bin, or -1."""
     b = 0
     stride = 1
@@ -75,29 +79,29 @@ def _search_bins(x, origin, spacing, dims, start, items, p0, tinv, bary):
     best, best_val = -1, -np.inf
     for j in range(start[b], start[b + 1]):
         t = items[j]
-        v = _bary(x, t, p0, tinv, bary)
+        v = _bary(x, t, geom, bary)
         if v >= -BARY_TOL and v > best_val:
             best, best_val = t, v
     return best
 
 
-@njit(cache=True, nogil=True)
-def _locate(x, hint, p0, tinv, nbr, origin, spacing, dims, start, items, bary):
+@njit(cache=True, nogil=True, inline="always")
+def _locate(x, hint, geom, nbr, origin, spacing, dims, start, items, bary):
     if hint >= 0:
-        t = _walk(x, hint, p0, tinv, nbr, bary)
+        t = _walk(x, hint, geom, nbr, bary)
         if t >= 0:
             return t
-    t = _search_bins(x, origin, spacing, dims, start, items, p0, tinv, bary)
+    t = _search_bins(x, origin, spacing, dims, start, items, geom, bary)
     if t >= 0:
-        _bary(x, t, p0, tinv, bary)
+        _bary(x, t, geom, bary)
     return t
 
 
 @njit(cache=True, parallel=True)
-def _locate_many(xs, hints, p0, tinv, nbr, origin, spacing, dims, start, items, tets_out, bary_out):
+def _locate_many(xs, hints, geom, nbr, origin, spacing, dims, start, items, tets_out, bary_out):
     for i in prange(xs.shape[0]):
         bary = bary_out[i]  # the point's own output row is its scratch
-        t = _locate(xs[i], hints[i], p0, tinv, nbr, origin, spacing, dims, start, items, bary)
+        t = _locate(xs[i], hints[i], geom, nbr, origin, spacing, dims, start, items, bary)
         tets_out[i] = t
         if t < 0:
             bary[:] = 0.0
@@ -155,24 +159,23 @@ def _bin_fill(lo, hi, dims, start, items):
 
 
 @njit(cache=True, parallel=True)
-def _inverses(points, tets, p0, tinv):
+def _geometry(points, tets, geom):
     for t in prange(tets.shape[0]):
         a = tets[t, 0]
         e = np.empty((3, 3))
         for r in range(3):
             for c in range(3):
                 e[r, c] = points[tets[t, r + 1], c] - points[a, c]
-            p0[t, r] = points[a, r]
+            geom[t, r] = points[a, r]
         # rows of the inverse of the edge matrix [e1 e2 e3] (edges as columns): (e2 x e3, e3 x e1, e1 x e2) / det
         for r in range(3):
             u, v = e[(r + 1) % 3], e[(r + 2) % 3]
-            tinv[t, r, 0] = u[1] * v[2] - u[2] * v[1]
-            tinv[t, r, 1] = u[2] * v[0] - u[0] * v[2]
-            tinv[t, r, 2] = u[0] * v[1] - u[1] * v[0]
-        det = e[0, 0] * tinv[t, 0, 0] + e[0, 1] * tinv[t, 0, 1] + e[0, 2] * tinv[t, 0, 2]
-        for r in range(3):
-            for c in range(3):
-                tinv[t, r, c] = tinv[t, r, c] / det if abs(det) > 1e-300 else np.inf
+            geom[t, 3 + 3 * r] = u[1] * v[2] - u[2] * v[1]
+            geom[t, 4 + 3 * r] = u[2] * v[0] - u[0] * v[2]
+            geom[t, 5 + 3 * r] = u[0] * v[1] - u[1] * v[0]
+        det = e[0, 0] * geom[t, 3] + e[0, 1] * geom[t, 4] + e[0, 2] * geom[t, 5]
+        for j in range(3, 12):
+            geom[t, j] = geom[t, j] / det if abs(det) > 1e-300 else np.inf
 
 
 @njit(cache=True)
@@ -227,6 +230,35 @@ def neighbours(tets: np.ndarray) -> np.ndarray:
 
 
 @njit(cache=True)
+def _group_order(keys, reverse, start, order):
+    """Stable counting sort of ``keys`` (ints in ``[0, len(reverse))``) into ``order``; within a key whose
+    ``reverse`` flag is set, the order is reversed. ``start`` (n_keys + 1) receives the group bounds."""
+    start[:] = 0
+    for i in range(keys.shape[0]):
+        start[keys[i] + 1] += 1
+    for k in range(reverse.shape[0]):
+        start[k + 1] += start[k]
+    seen = np.zeros(reverse.shape[0], np.int64)
+    for i in range(keys.shape[0]):
+        k = keys[i]
+        pos = start[k + 1] - 1 - seen[k] if reverse[k] else start[k] + seen[k]
+        seen[k] += 1
+        order[pos] = i
+
+
+def group_order(keys: np.ndarray, n_keys: int, reverse: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Permutation that groups ``keys`` (ints in ``[0, n_keys)``) in ascending order, keeping the original
+    order within a group (reversed for the keys flagged in ``reverse``), in linear time; and the size of
+    each group ``(n_keys,)``. The twin of ``numpy.argsort(keys, kind="stable")``."""
+    keys = np.ascontiguousarray(keys, dtype=np.int64)
+    rev = np.zeros(n_keys, np.bool_) if reverse is None else np.ascontiguousarray(reverse, dtype=np.bool_)
+    start = np.empty(n_keys + 1, np.int64)
+    order = np.empty(len(keys), np.int64)
+    _group_order(keys, rev, start, order)
+    return order, np.diff(start)
+
+
+@njit(cache=True)
 def _cell_sizes(points, offsets, conn, cell_size, point_size):
     for c in range(offsets.shape[0] - 1):
         d2 = 0.0
@@ -254,13 +286,20 @@ def cell_sizes(points: np.ndarray, offsets: np.ndarray, conn: np.ndarray) -> tup
     return cs, ps
 
 
+def tet_geometry(points: np.ndarray, tets: np.ndarray) -> np.ndarray:
+    """Per-tetrahedron records ``(M, 12)`` for point location: the first vertex, then the inverse edge
+    matrix row by row (barycentric coordinates are ``tinv @ (x - p0)``). Degenerate tetrahedra get
+    infinite inverses (they never contain a point)."""
+    geom = np.empty((len(tets), 12))
+    _geometry(np.ascontiguousarray(points, dtype=np.float64), np.ascontiguousarray(tets, dtype=np.int64), geom)
+    return geom
+
+
 def tet_inverses(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """First vertex ``(M, 3)`` and inverse edge matrix ``(M, 3, 3)`` of each tetrahedron: barycentric
-    coordinates are ``tinv @ (x - p0)``. Degenerate tetrahedra get infinite inverses (never contain)."""
-    p0 = np.empty((len(tets), 3))
-    tinv = np.empty((len(tets), 3, 3))
-    _inverses(np.ascontiguousarray(points, dtype=np.float64), np.ascontiguousarray(tets, dtype=np.int64), p0, tinv)
-    return p0, tinv
+    """First vertex ``(M, 3)`` and inverse edge matrix ``(M, 3, 3)`` of each tetrahedron (views of
+    :func:`tet_geometry`)."""
+    geom = tet_geometry(points, tets)
+    return geom[:, :3], geom[:, 3:].reshape(-1, 3, 3)
 
 
 def build_bins(points: np.ndarray, tets: np.ndarray, per_bin: float = 8.0) -> BinGrid:
@@ -291,10 +330,24 @@ class Locator:
 
     def __init__(self, tm: TetMesh) -> None:
         self.tm = tm
-        self.p0, self.tinv = tet_inverses(tm.points, tm.tets)
-        self.nbr = neighbours(tm.tets)
+        self.geom = tet_geometry(tm.points, tm.tets)
+        if len(tm.tets) >= 2**31 or len(tm.points) >= 2**31:
+            raise InputError(f"{len(tm.tets)} tetrahedra on {len(tm.points)} points: more than the engine's 32-bit "
+                             "topology holds (2**31 - 1)")
+        # 32-bit topology for the kernels: half the memory of 64-bit indices, on the walk's every step
+        self.nbr = neighbours(tm.tets).astype(np.int32)
         self.bins: BinGrid = build_bins(tm.points, tm.tets)
-        self.conn = np.ascontiguousarray(tm.tets)
+        self.conn = tm.tets.astype(np.int32)
+
+    @property
+    def p0(self) -> np.ndarray:
+        """First vertex of each tetrahedron ``(M, 3)`` (a view of ``geom``)."""
+        return self.geom[:, :3]
+
+    @property
+    def tinv(self) -> np.ndarray:
+        """Inverse edge matrix of each tetrahedron ``(M, 3, 3)`` (a view of ``geom``)."""
+        return self.geom[:, 3:].reshape(-1, 3, 3)
 
     def locate(self, x: np.ndarray, hints: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Containing tetrahedron (-1 outside) and barycentric coordinates of each point.
@@ -310,7 +363,7 @@ class Locator:
         tets = np.empty(len(x), np.int64)
         bary = np.empty((len(x), 4))
         b = self.bins
-        _locate_many(x, h, self.p0, self.tinv, self.nbr, b.origin, b.spacing, b.dims, b.start, b.items, tets, bary)
+        _locate_many(x, h, self.geom, self.nbr, b.origin, b.spacing, b.dims, b.start, b.items, tets, bary)
         return tets, bary
 
     def interpolate(self, tets: np.ndarray, bary: np.ndarray, values: np.ndarray) -> np.ndarray:

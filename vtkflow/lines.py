@@ -20,6 +20,7 @@ from typing import Any, Callable, NamedTuple, Optional
 
 import numpy as np
 
+from .kernels import group_order
 from .particles import State, Status, TimeField, advance, place, trace_streamlines
 
 __all__ = ["LINE_KINDS", "LineKind", "ParticleTracer", "StreamlineTracer", "release_instants", "STATUS_NAMES"]
@@ -67,7 +68,7 @@ class _History:
         self.v = np.zeros((0, 3))
 
     def __call__(self, idx: np.ndarray, x: np.ndarray, t: np.ndarray, v: np.ndarray) -> None:
-        self._chunks.append((idx.astype(np.int64), x.copy(), t.copy(), v.copy()))
+        self._chunks.append((idx.astype(np.int64), x, t, v))  # the engines hand over arrays of their own
 
     def consolidate(self) -> None:
         if self._chunks:
@@ -168,9 +169,10 @@ class ParticleTracer:
         h = self.history
         assert h is not None
         h.consolidate()
-        order = np.argsort(h.ids, kind="stable")  # vertices were recorded in time order per particle
+        # vertices were recorded in time order per particle: group them by particle, keeping that order
+        order, lengths = group_order(h.ids, len(self.release_time))
         ids = h.ids[order]
-        _, lengths = np.unique(ids, return_counts=True)
+        lengths = lengths[lengths > 0]
         return self._polydata(ids, h.x[order], h.t[order], h.v[order], lengths, time)
 
     def _polydata(self, ids: np.ndarray, x: np.ndarray, t: np.ndarray, v: np.ndarray, lengths: np.ndarray, time: float) -> Any:

@@ -23,6 +23,7 @@ from typing import Callable, NamedTuple, Optional
 
 import numpy as np
 
+from .kernels import group_order
 from .mesh import Mesh
 
 __all__ = [
@@ -107,7 +108,7 @@ class TimeField:
         frozen unit-tangent field at that time (streamlines)."""
         loc = self.mesh.locator
         b = loc.bins
-        mesh = (loc.p0, loc.tinv, loc.nbr, loc.conn, b.origin, b.spacing, b.dims, b.start, b.items)
+        mesh = (loc.geom, loc.nbr, loc.conn, b.origin, b.spacing, b.dims, b.start, b.items)
         frozen = time is not None
         field = (self.mesh.values, self.t0, self.t1, frozen, float(time or 0.0), float(floor))
         return mesh, field
@@ -190,6 +191,7 @@ class State:
         )
 
 
+#: ``record(idx, x, t, v)`` after accepted steps; the arrays are the recorder's to keep (never reused).
 Recorder = Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], None]
 
 
@@ -230,11 +232,14 @@ def advance(
     if engine == "numpy" or not hasattr(field, "kernel_args"):
         advance_numpy(state, t_end, field, step, record, max_iterations)
         return
-    from .integrate import advance_particles
+    from .integrate import RecordBuffers, advance_particles
 
     mesh, args = field.kernel_args()
     signs = getattr(field, "sign", None)
     params = (MIN_STEP, MAX_GROWTH, float(tolerance or 0.0), DEFAULT_RTOL)
+    # with a recorder: chunks of CHUNK_STEPS steps into reused buffers; without: no buffers, no chunks
+    buffers = RecordBuffers(CHUNK_STEPS) if record is not None else None
+    chunk = CHUNK_STEPS if record is not None else 1 << 40
     for _ in range(max_iterations):
         active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
         if active.size == 0:
@@ -244,15 +249,13 @@ def advance(
         cell, status = state.cell[active], state.status[active]
         sg = np.ones(active.size) if signs is None else np.ascontiguousarray(signs[active], dtype=np.float64)
         dts = state.dt[active]
-        chunk = CHUNK_STEPS if record is not None else 1 << 40  # without a recorder: no buffers, no chunks
-        rec_x, rec_t, rec_v, counts = advance_particles(
-            x, t, v, h, cell, status, dts, sg, t_end, step, chunk, mesh, args, params, integrator, record is not None
-        )
+        got = advance_particles(x, t, v, h, cell, status, dts, sg, t_end, step, chunk, mesh, args, params, integrator,
+                                buffers)
         state.x[active], state.t[active], state.v[active], state.h[active] = x, t, v, h
         state.cell[active], state.status[active], state.dt[active] = cell, status, dts
-        if record is not None and counts.any():
-            valid = np.arange(CHUNK_STEPS)[None, :] < counts[:, None]
-            record(np.repeat(active, counts), rec_x[valid], rec_t[valid], rec_v[valid])
+        if got is not None and got[0].size:
+            rows, rx, rt, rv = got
+            record(active[rows], rx, rt, rv)
     raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} rounds")
 
 
@@ -432,7 +435,7 @@ def trace_streamlines(
     chunks: list[tuple[np.ndarray, ...]] = []
 
     def record(idx: np.ndarray, x: np.ndarray, s: np.ndarray, v: np.ndarray) -> None:
-        chunks.append((idx.copy(), x.copy(), s.copy(), v.copy()))
+        chunks.append((idx, x, s, v))  # the engines hand over arrays of their own
 
     state = State.empty(len(sign))
     place(state, rows, start, np.zeros(len(sign)), frozen)
@@ -447,8 +450,12 @@ def trace_streamlines(
     if direction == "both":  # the seed vertex appears once, with the forward part
         keep = ~((sign[idx] < 0) & (arc == 0.0))
         idx, x, arc, vel = idx[keep], x[keep], arc[keep], vel[keep]
+    # per seed by signed arc length (backward part reversed, then forward): rows were recorded in arc
+    # order, so a counting sort on (seed, direction) with the backward groups reversed does it
+    n_dir = len(signs)
     seed = idx % L if L else idx
-    order = np.lexsort((arc, seed))  # per seed by signed arc length: backward part reversed, then forward
+    key = seed * n_dir + idx // max(L, 1)
+    order, _ = group_order(key, n_dir * L, np.tile(np.asarray(signs) < 0, L))
     idx, x, arc, seed, vel = idx[order], x[order], arc[order], seed[order], vel[order]
     return StreamlineSet(
         points=x,
