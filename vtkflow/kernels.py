@@ -17,9 +17,9 @@ import numpy as np
 from numba import njit, prange
 
 from .errors import InputError
-from .tetmesh import BinGrid, TetMesh, grid_shape
+from .tetmesh import PER_BIN, BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "group_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "group_order", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -119,10 +119,10 @@ def _interpolate(tets, bary, conn, values, out):
             out[i, c] = acc
 
 
-@njit(cache=True)
+@njit(cache=True, parallel=True)
 def _bin_ranges(points, tets, origin, spacing, dims, pad, lo, hi):
     """First and last bin index per axis of each tetrahedron's bounding box, padded by ``pad``."""
-    for t in range(tets.shape[0]):
+    for t in prange(tets.shape[0]):
         for c in range(3):
             a = np.inf
             b = -np.inf
@@ -135,19 +135,17 @@ def _bin_ranges(points, tets, origin, spacing, dims, pad, lo, hi):
 
 
 @njit(cache=True)
-def _bin_fill(lo, hi, dims, start, items):
-    """Count, then list, the tetrahedra of every bin (in tetrahedron order within a bin)."""
-    counts = np.zeros(start.shape[0] - 1, np.int64)
+def _bin_fill(lo, hi, dims, start):
+    """Count, then list, the tetrahedra of every bin (in tetrahedron order within a bin); returns the list."""
+    start[:] = 0
     for t in range(lo.shape[0]):
         for z in range(lo[t, 2], hi[t, 2] + 1):
             for y in range(lo[t, 1], hi[t, 1] + 1):
                 for x in range(lo[t, 0], hi[t, 0] + 1):
-                    counts[x + dims[0] * (y + dims[1] * z)] += 1
-    start[0] = 0
-    for b in range(counts.shape[0]):
-        start[b + 1] = start[b] + counts[b]
-    if items.shape[0] == 0:
-        return
+                    start[x + dims[0] * (y + dims[1] * z) + 1] += 1
+    for b in range(start.shape[0] - 1):
+        start[b + 1] += start[b]
+    items = np.empty(start[-1], np.int32)
     fill = start[:-1].copy()
     for t in range(lo.shape[0]):
         for z in range(lo[t, 2], hi[t, 2] + 1):
@@ -156,6 +154,7 @@ def _bin_fill(lo, hi, dims, start, items):
                     b = x + dims[0] * (y + dims[1] * z)
                     items[fill[b]] = t
                     fill[b] += 1
+    return items
 
 
 @njit(cache=True, parallel=True)
@@ -178,18 +177,12 @@ def _geometry(points, tets, geom):
             geom[t, j] = geom[t, j] / det if abs(det) > 1e-300 else np.inf
 
 
-@njit(cache=True)
-def _neighbours(tets, n_points, nbr):
-    """Match faces that share their three vertices: faces are bucketed by their smallest vertex (a
-    counting sort, linear time), then paired within each small bucket."""
-    m = tets.shape[0]
-    opp = np.array([[1, 2, 3], [0, 2, 3], [0, 1, 3], [0, 1, 2]])
-    lo = np.empty(4 * m, np.int64)
-    mid = np.empty(4 * m, np.int64)
-    hi = np.empty(4 * m, np.int64)
-    for t in range(m):
+@njit(cache=True, parallel=True)
+def _face_keys(tets, lo, mid, hi):
+    """The sorted vertex triple of every face (face ``4 t + f`` is opposite vertex ``f`` of ``t``)."""
+    for t in prange(tets.shape[0]):
         for f in range(4):
-            a, b, c = tets[t, opp[f, 0]], tets[t, opp[f, 1]], tets[t, opp[f, 2]]
+            a, b, c = tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4]
             if a > b:
                 a, b = b, a
             if b > c:
@@ -197,36 +190,99 @@ def _neighbours(tets, n_points, nbr):
             if a > b:
                 a, b = b, a
             lo[4 * t + f], mid[4 * t + f], hi[4 * t + f] = a, b, c
-    start = np.zeros(n_points + 1, np.int64)
-    for i in range(4 * m):
+
+
+@njit(cache=True)
+def _bucket_faces(lo, n_points, start, faces):
+    """Counting sort of the faces by their smallest vertex: bucket ``v`` is ``faces[start[v]:start[v + 1]]``."""
+    start[:] = 0
+    for i in range(lo.shape[0]):
         start[lo[i] + 1] += 1
     for v in range(n_points):
         start[v + 1] += start[v]
     fill = start[:-1].copy()
-    faces = np.empty(4 * m, np.int64)
-    for i in range(4 * m):
+    for i in range(lo.shape[0]):
         faces[fill[lo[i]]] = i
         fill[lo[i]] += 1
-    nbr[:] = -1
-    for v in range(n_points):
+
+
+@njit(cache=True, parallel=True)
+def _pair_faces(faces, start, mid, hi, nbr):
+    """Pair the faces with equal vertices within each bucket (both faces of a pair share a bucket, so
+    buckets are independent and each thread writes only its own buckets' entries)."""
+    for v in prange(start.shape[0] - 1):
         for p in range(start[v], start[v + 1]):
             i = faces[p]
-            if nbr[i // 4, i % 4] >= 0:
+            if nbr[i] >= 0:
                 continue
             for q in range(p + 1, start[v + 1]):
                 j = faces[q]
-                if mid[j] == mid[i] and hi[j] == hi[i] and nbr[j // 4, j % 4] < 0:
-                    nbr[i // 4, i % 4] = j // 4
-                    nbr[j // 4, j % 4] = i // 4
+                if mid[j] == mid[i] and hi[j] == hi[i] and nbr[j] < 0:
+                    nbr[i] = j // 4
+                    nbr[j] = i // 4
                     break
 
 
 def neighbours(tets: np.ndarray) -> np.ndarray:
-    """Face neighbours as :func:`vtkflow.tetmesh.face_neighbours` (its NumPy twin), in linear time."""
+    """Face neighbours as :func:`vtkflow.tetmesh.face_neighbours` (its NumPy twin), in linear time: faces
+    are bucketed by their smallest vertex (a counting sort), then paired within each small bucket."""
     tets = np.ascontiguousarray(tets, dtype=np.int64)
-    nbr = np.empty((len(tets), 4), np.int64)
-    _neighbours(tets, int(tets.max()) + 1 if len(tets) else 0, nbr)
-    return nbr
+    m = len(tets)
+    n_points = int(tets.max()) + 1 if m else 0
+    lo, mid, hi = np.empty(4 * m, np.int64), np.empty(4 * m, np.int64), np.empty(4 * m, np.int64)
+    _face_keys(tets, lo, mid, hi)
+    start = np.empty(n_points + 1, np.int64)
+    faces = np.empty(4 * m, np.int64)
+    _bucket_faces(lo, n_points, start, faces)
+    nbr = np.full(4 * m, -1, np.int64)
+    _pair_faces(faces, start, mid, hi, nbr)
+    return nbr.reshape(m, 4)
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _spread21(v):
+    """The low 21 bits of ``v`` put three places apart (bit i to bit 3 i); masks as in
+    :func:`vtkflow.tetmesh.morton_order`."""
+    v = v & np.uint64(0x1FFFFF)
+    v = (v | (v << np.uint64(32))) & np.uint64(0x1F00000000FFFF)
+    v = (v | (v << np.uint64(16))) & np.uint64(0x1F0000FF0000FF)
+    v = (v | (v << np.uint64(8))) & np.uint64(0x100F00F00F00F00F)
+    v = (v | (v << np.uint64(4))) & np.uint64(0x10C30C30C30C30C3)
+    v = (v | (v << np.uint64(2))) & np.uint64(0x1249249249249249)
+    return v
+
+
+@njit(cache=True, parallel=True)
+def _orient_and_code(points, tets, lo, scale, codes):
+    """Make every tetrahedron positively oriented (swap vertices 1 and 2 where the signed volume is
+    negative) and put the Morton code of its centroid (21 bits per axis over ``lo``, ``scale``) in ``codes``."""
+    for t in prange(tets.shape[0]):
+        a, b, c, d = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
+        e1x, e1y, e1z = points[b, 0] - points[a, 0], points[b, 1] - points[a, 1], points[b, 2] - points[a, 2]
+        e2x, e2y, e2z = points[c, 0] - points[a, 0], points[c, 1] - points[a, 1], points[c, 2] - points[a, 2]
+        e3x, e3y, e3z = points[d, 0] - points[a, 0], points[d, 1] - points[a, 1], points[d, 2] - points[a, 2]
+        vol = (e1y * e2z - e1z * e2y) * e3x + (e1z * e2x - e1x * e2z) * e3y + (e1x * e2y - e1y * e2x) * e3z
+        if vol < 0.0:
+            tets[t, 1], tets[t, 2] = c, b
+        code = np.uint64(0)
+        for k in range(3):
+            m = 0.25 * (((points[a, k] + points[b, k]) + points[c, k]) + points[d, k])
+            q = np.uint64(max(min((m - lo[k]) * scale[k], 2097151.0), 0.0))
+            code |= _spread21(q) << np.uint64(k)
+        codes[t] = code
+
+
+def orient_and_order(points: np.ndarray, tets: np.ndarray) -> np.ndarray:
+    """Fix the orientation of ``tets`` (in place, positive signed volume) and return the permutation that
+    numbers them along a Morton curve of their centroids over the bounds of ``points`` (the numba twin of
+    :func:`vtkflow.tetmesh.orient_and_order_numpy`)."""
+    codes = np.empty(len(tets), np.uint64)
+    if len(tets) == 0:
+        return np.zeros(0, np.int64)
+    lo, hi = points.min(axis=0), points.max(axis=0)
+    scale = (2**21 - 1) / np.maximum(hi - lo, 1e-300)
+    _orient_and_code(points, tets, lo, scale, codes)
+    return np.argsort(codes, kind="stable")  # NumPy sorts 64-bit keys by radix: faster than a numba loop
 
 
 @njit(cache=True)
@@ -302,16 +358,14 @@ def tet_inverses(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.n
     return geom[:, :3], geom[:, 3:].reshape(-1, 3, 3)
 
 
-def build_bins(points: np.ndarray, tets: np.ndarray, per_bin: float = 8.0) -> BinGrid:
+def build_bins(points: np.ndarray, tets: np.ndarray, per_bin: float = PER_BIN) -> BinGrid:
     """The bin grid of :func:`vtkflow.tetmesh.bin_grid` (its NumPy twin), built in two numba passes."""
     origin, spacing, dims, pad = grid_shape(points, len(tets), per_bin)
     lo = np.empty((len(tets), 3), np.int64)
     hi = np.empty((len(tets), 3), np.int64)
     _bin_ranges(points, tets, origin, spacing, dims, pad, lo, hi)
     start = np.empty(int(np.prod(dims)) + 1, np.int64)
-    _bin_fill(lo, hi, dims, start, np.zeros(0, np.int64))
-    items = np.empty(int(start[-1]), np.int64)
-    _bin_fill(lo, hi, dims, start, items)
+    items = _bin_fill(lo, hi, dims, start)  # 32-bit tetrahedron numbers (the Locator checks the count)
     return BinGrid(origin, spacing, dims, start, items)
 
 
