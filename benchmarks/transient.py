@@ -264,7 +264,7 @@ def main() -> None:
 
         def record(idx, x, t, v):  # what a pathline keeps: every vertex
             chunks.append(len(idx))
-            kept.append((idx.copy(), x.copy(), t.copy()))
+            kept.append((idx, x, t))  # the engine hands over arrays of its own
 
         state = State.empty(N)
         t_load = 0.0

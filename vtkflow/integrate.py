@@ -153,9 +153,9 @@ TABLEAUS = {"rk4": (RK4_C, RK4_A, RK4_B, RK4_E, False), "dopri5": (DP_C, DP_A, D
 @njit(cache=True, nogil=True, inline="always")
 def _record(i, n, x, t, v, scale, rec_x, rec_t, rec_v):
     for c in range(3):
-        rec_x[i, n, c] = x[c]
-        rec_v[i, n, c] = v[c] * scale
-    rec_t[i, n] = t
+        rec_x[n, i, c] = x[c]
+        rec_v[n, i, c] = v[c] * scale
+    rec_t[n, i] = t
 
 
 @njit(cache=True, nogil=True)
@@ -184,7 +184,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
             C[i] = cell
             return 0
     cap = D[i] if adaptive and D[i] > 0.0 else np.inf  # the adaptive scheme's suggested step
-    recording = rec_x.shape[1] > 0  # without buffers, steps are taken but not recorded
+    recording = rec_x.shape[0] > 0  # without buffers, steps are taken but not recorded
     # recorded velocities are the velocity itself; in frozen mode v is the unit tangent: scale it back
     frozen = field[3]
     scale = 1.0
@@ -322,31 +322,30 @@ def _compact(rec_x, rec_t, rec_v, counts, first, rows, x, t, v):
         for k in range(counts[i]):
             j = first[i] + k
             rows[j] = i
-            t[j] = rec_t[i, k]
+            t[j] = rec_t[k, i]
             for c in range(3):
-                x[j, c] = rec_x[i, k, c]
-                v[j, c] = rec_v[i, k, c]
+                x[j, c] = rec_x[k, i, c]
+                v[j, c] = rec_v[k, i, c]
 
 
 class RecordBuffers:
-    """Per-particle record buffers of ``width`` steps, kept across calls (grown when more particles come),
-    so that a long run does not fault in fresh pages for every chunk of steps."""
+    """Record buffers for ``width`` steps of ``n`` particles, step-major (``x[k, i]`` is particle ``i``'s
+    ``k``-th record), kept across calls and grown when more particles come: the operating system maps
+    only the pages written, so a call in which particles take few steps costs little memory traffic."""
 
     def __init__(self, width: int) -> None:
         self.width = int(width)
-        self.x = np.empty((0, self.width, 3))
-        self.t = np.empty((0, self.width))
-        self.v = np.empty((0, self.width, 3))
+        self._x = self._t = self._v = np.empty(0)
 
     def take(self, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        if len(self.t) < n:
-            self.x = np.empty((n, self.width, 3))
-            self.t = np.empty((n, self.width))
-            self.v = np.empty((n, self.width, 3))
-        return self.x[:n], self.t[:n], self.v[:n]
+        w = self.width
+        if self._t.size < w * n:
+            self._x, self._t, self._v = np.empty(w * n * 3), np.empty(w * n), np.empty(w * n * 3)
+        # contiguous views of the first w * n entries: one compiled layout whatever n
+        return self._x[: w * n * 3].reshape(w, n, 3), self._t[: w * n].reshape(w, n), self._v[: w * n * 3].reshape(w, n, 3)
 
 
-_NO_RECORDS = np.empty((0, 0, 3)), np.empty((0, 0)), np.empty((0, 0, 3))
+_NO_RECORDS = np.empty((0, 0, 3)), np.empty((0, 0)), np.empty((0, 0, 3))  # nothing recorded
 
 
 def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params, integrator="rk4",
