@@ -230,9 +230,10 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
                 xn[c] = x[c] + dt * acc
             cn, hn, sn, spn = _sample(xn, tn, cells[ns - 1], mesh, field, sign, kn, bary)
             inside = cn >= 0
-        vmax = 0.0
+        vmax2 = 0.0
         for m in range(n_in):
-            vmax = max(vmax, np.sqrt(k[m, 0] ** 2 + k[m, 1] ** 2 + k[m, 2] ** 2))
+            vmax2 = max(vmax2, k[m, 0] ** 2 + k[m, 1] ** 2 + k[m, 2] ** 2)
+        vmax = np.sqrt(vmax2)
         if not inside:
             if dt * vmax <= min_step * h:
                 # to the boundary along the mean velocity of the stages that stayed inside
