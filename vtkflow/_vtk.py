@@ -23,12 +23,31 @@ from vtkmodules.vtkCommonDataModel import (  # noqa: F401
     vtkStaticCellLocator,
     vtkUnstructuredGrid,
 )
+from vtkmodules.vtkFiltersCore import vtkContour3DLinearGrid, vtkPolyDataConnectivityFilter  # noqa: F401
 from vtkmodules.vtkIOLegacy import vtkUnstructuredGridReader  # noqa: F401
 from vtkmodules.vtkIOXML import (  # noqa: F401
     vtkXMLPolyDataReader,
     vtkXMLPolyDataWriter,
     vtkXMLUnstructuredGridReader,
+    vtkXMLUnstructuredGridWriter,
 )
+
+
+_threads_set = False
+
+
+def use_threads() -> None:
+    """Run VTK's SMP-parallel filters on threads (the wheels default to one thread), as many as numba
+    uses; once per process."""
+    global _threads_set
+    if _threads_set:
+        return
+    import numba
+    from vtkmodules.vtkCommonCore import vtkSMPTools
+
+    vtkSMPTools.SetBackend("STDThread")
+    vtkSMPTools.Initialize(numba.get_num_threads())
+    _threads_set = True
 
 
 @contextmanager

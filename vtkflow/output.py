@@ -11,7 +11,7 @@ import os
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Any, Iterator, Mapping
+from typing import Any, Iterator, Mapping, Sequence
 
 import numpy as np
 
@@ -19,7 +19,7 @@ from . import _vtk
 from ._vtk import numpy_to_vtk
 from .errors import OutputError
 
-__all__ = ["polylines", "write_vtp", "read_vtp", "atomic_path", "write_json", "frame_path"]
+__all__ = ["polylines", "write_vtp", "write_vtu", "write_csv", "read_vtp", "atomic_path", "write_json", "frame_path"]
 
 TMP_SUFFIX = ".part"
 
@@ -123,6 +123,35 @@ def write_vtp(polydata: Any, path: Path) -> Path:
         if not ok:
             detail = messages[0].strip().splitlines()[-1] if messages else "no detail"
             raise OutputError(f"{path}: VTK could not write the file ({detail})")
+    return path
+
+
+def write_vtu(grid: Any, path: Path) -> Path:
+    """Write an unstructured grid as VTK XML (binary, zlib-compressed) atomically."""
+    with atomic_path(path) as tmp:
+        w = _vtk.vtkXMLUnstructuredGridWriter()
+        w.SetFileName(str(tmp))
+        w.SetInputData(grid)
+        w.SetDataModeToBinary()
+        w.SetCompressorTypeToZLib()
+        with _vtk.captured_messages() as messages:
+            ok = w.Write() == 1
+        if not ok:
+            detail = messages[0].strip().splitlines()[-1] if messages else "no detail"
+            raise OutputError(f"{path}: VTK could not write the file ({detail})")
+    return path
+
+
+def write_csv(columns: Sequence[str], rows: Sequence[Sequence[Any]], path: Path) -> Path:
+    """Write a table as CSV (header line, then one line per row; floats with full precision) atomically."""
+    import csv
+
+    with atomic_path(path) as tmp:
+        with open(tmp, "w", newline="") as fh:
+            out = csv.writer(fh)
+            out.writerow(columns)
+            for row in rows:
+                out.writerow([repr(float(v)) if isinstance(v, (float, np.floating)) else v for v in row])
     return path
 
 

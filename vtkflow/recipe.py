@@ -32,6 +32,7 @@ from pydantic import (
 
 from ._model import Strict
 from .colormaps import COLORMAPS
+from .criteria import CRITERIA
 from .errors import RecipeError
 from .lines import LINE_KINDS
 from .releases import SHAPES
@@ -43,6 +44,7 @@ __all__ = [
     "Release",
     "LineEntry",
     "RenderEntry",
+    "VortexEntry",
     "Camera",
     "LoadedRecipe",
     "load_recipe",
@@ -200,6 +202,66 @@ class LineEntry(Strict):
         return self
 
 
+# ------------------------------------------------------------------------------------------ vortices
+class Reference(Strict):
+    """Reference velocity and length: levels given in units of (velocity / length) ** power."""
+
+    velocity: PositiveFloat
+    length: PositiveFloat
+
+
+class CoreLineSpec(Strict):
+    """Vortex core lines (Sujudi & Haimes 1995): which to keep."""
+
+    min_strength: float = Field(
+        0.0, ge=0.0, description="smallest swirling strength (1/time) of the cells a core line may pass through"
+    )
+    min_length: float = Field(0.0, ge=0.0, description="shortest core line kept (length units)")
+
+
+class VortexEntry(Strict):
+    """One vortex entry: a criterion, its level, and what to write per frame."""
+
+    criterion: str = Field(description="one of " + ", ".join(CRITERIA), json_schema_extra={"enum": list(CRITERIA)})
+    level: float = Field(description="isosurface level; its meaning is set by 'level_is'")
+    level_is: Literal["absolute", "scaled", "fraction", "percentile"] = Field(
+        "absolute",
+        description="absolute: the value itself; scaled: in units of (reference.velocity / reference.length) ** n"
+        " (n = 2 for q and lambda2, 6 for delta, 1 for swirl); fraction: of the frame's strongest value (its"
+        " maximum, for lambda2 its minimum); percentile: that percentile (0-100) of the frame's values",
+    )
+    reference: Optional[Reference] = Field(None, description="with level_is: scaled")
+    hold: bool = Field(False, description="fraction or percentile: find the level in the first frame and keep it")
+    start: Optional[float] = Field(None, description="window start (default: first snapshot time)")
+    stop: Optional[float] = Field(None, description="window end (default: last snapshot time)")
+    every: PositiveInt = Field(1, description="every n-th snapshot in the window (from its first)")
+    arrays: list[str] = Field(default_factory=list, description="input point or cell arrays carried onto the surface")
+    min_area: Optional[PositiveFloat] = Field(None, description="remove isosurface pieces with a smaller area")
+    core_lines: Optional[CoreLineSpec] = Field(
+        default_factory=CoreLineSpec, description="core lines and their filters; null for none"
+    )
+    volume: bool = Field(False, description="also write the criteria on the mesh as <entry>_volume_NNNN.vtu")
+
+    @field_validator("criterion")
+    @classmethod
+    def _known_criterion(cls, v: str) -> str:
+        if v not in CRITERIA:
+            raise ValueError(f"unknown criterion {v!r}; choose one of {', '.join(CRITERIA)}")
+        return v
+
+    @model_validator(mode="after")
+    def _level(self) -> "VortexEntry":
+        if (self.level_is == "scaled") != (self.reference is not None):
+            raise ValueError("'reference' goes with level_is: scaled, and only with it")
+        if self.hold and self.level_is not in ("fraction", "percentile"):
+            raise ValueError("'hold' applies to level_is: fraction or percentile only")
+        if self.level_is == "percentile" and not 0.0 <= self.level <= 100.0:
+            raise ValueError(f"a percentile level lies in [0, 100], got {self.level}")
+        if self.start is not None and self.stop is not None and self.stop < self.start:
+            raise ValueError(f"stop ({self.stop}) is before start ({self.start})")
+        return self
+
+
 # ------------------------------------------------------------------------------------------- renders
 class Camera(Strict):
     """Camera placement: eye position, the point looked at, and the up direction."""
@@ -260,6 +322,7 @@ class Recipe(Strict):
     data: Data
     releases: dict[str, Release] = Field(default_factory=dict)  # type: ignore[valid-type]
     lines: dict[str, LineEntry] = Field(default_factory=dict)
+    vortices: dict[str, VortexEntry] = Field(default_factory=dict)
     renders: dict[str, RenderEntry] = Field(default_factory=dict)
     output: str = Field("out", description="output folder, relative to the recipe file")
 
@@ -268,12 +331,16 @@ class Recipe(Strict):
         _check_names(self.releases, "release", "releases")
         _check_names(self.lines, "line entry", "lines")
         _check_names(self.renders, "render", "renders")
+        _check_names(self.vortices, "vortex entry", "vortices")
+        for name in self.vortices:
+            if name in self.lines:
+                raise ValueError(f"vortices.{name}: a vortex entry may not share its name with a line entry")
         for name, entry in self.lines.items():
             if entry.release not in self.releases:
                 raise ValueError(_unknown("release", entry.release, self.releases, f"lines.{name}.release"))
         for name, render in self.renders.items():
-            if name in self.lines:
-                raise ValueError(f"renders.{name}: a render may not share its name with a line entry")
+            if name in self.lines or name in self.vortices:
+                raise ValueError(f"renders.{name}: a render may not share its name with a line or vortex entry")
             for line in render.lines:
                 if line not in self.lines:
                     raise ValueError(_unknown("line entry", line, self.lines, f"renders.{name}.lines"))
@@ -389,6 +456,7 @@ def json_schema() -> dict[str, Any]:
     return schema
 
 
-_MODEL_NAMES = {"Recipe", "Data", "TimesSpec", "Release", "LineEntry", "RenderEntry", "Camera", "FrameEvery"} | {
+_MODEL_NAMES = {"Recipe", "Data", "TimesSpec", "Release", "LineEntry", "RenderEntry", "Camera", "FrameEvery",
+                "VortexEntry", "Reference", "CoreLineSpec"} | {
     getattr(s.spec, "__name__", "") for s in SHAPES.values()
 }

@@ -19,11 +19,12 @@ import numpy as np
 from . import __version__
 from .errors import InputError, OutputError, RecipeError
 from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, release_instants
-from .output import frame_path, write_json, write_vtp
+from .output import frame_path, write_csv, write_json, write_vtp, write_vtu
 from .particles import TimeField
 from .recipe import FrameEvery, LineEntry, LoadedRecipe
 from .releases import release_points
 from .series import Series
+from .vortex import CORE_COLUMNS, FRAME_COLUMNS, VortexField, VortexFrame, VortexPlan, VortexTracer, plan_vortex
 
 __all__ = ["open_series", "plan", "plan_entry", "Plan", "EntryPlan", "run_recipe", "frame_times", "stream", "make_tracer"]
 
@@ -85,10 +86,11 @@ class Plan:
     series: Series
     entries: list[EntryPlan] = field(default_factory=list)
     releases: dict[str, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
+    vortices: list[VortexPlan] = field(default_factory=list)
 
     @property
     def n_frames(self) -> int:
-        return sum(len(e.frames) for e in self.entries)
+        return sum(len(e.frames) for e in self.entries) + sum(len(v.snapshots) for v in self.vortices)
 
 
 def plan(loaded: LoadedRecipe, series: Series) -> Plan:
@@ -101,6 +103,10 @@ def plan(loaded: LoadedRecipe, series: Series) -> Plan:
     for name, entry in recipe.lines.items():
         pts, inside = result.releases[entry.release]
         result.entries.append(plan_entry(name, entry, pts, inside, series.times, f"{loaded.path}: "))
+    for name, ventry in recipe.vortices.items():
+        result.vortices.append(plan_vortex(name, ventry, series.times, f"{loaded.path}: "))
+        if ventry.arrays:
+            series.keep_arrays(ventry.arrays, f"vortices.{name}.arrays")
     for name, render in recipe.renders.items():
         for i, context in enumerate(render.context):
             path = loaded.base / context
@@ -130,15 +136,28 @@ def plan_entry(
 
 
 def stream(series: Series, tracers: Sequence[Any], emit: Callable[[str], Callable[[int, float, Any], None]],
-           last_needed: float) -> dict[str, int]:
-    """One pass over the snapshot intervals: load two snapshots at a time and advance every tracer.
+           last_needed: float, vortices: Sequence[VortexTracer] = ()) -> dict[str, int]:
+    """One pass over the snapshot intervals: load two snapshots at a time and advance every tracer; each
+    vortex entry makes its frames from the snapshots as they are read.
 
     Returns the NaN point counts of the snapshots read, by file label.
     """
-    emits = {t.name: emit(t.name) for t in tracers}
+    emits = {t.name: emit(t.name) for t in (*tracers, *vortices)}
     field = TimeField(series.mesh)
     times = series.times
     nan_files: dict[str, int] = {}
+    frame_of = [{int(k): i for i, k in enumerate(v.plan.snapshots)} for v in vortices]
+    seen = -1
+
+    def snapshots_to(k: int) -> None:
+        nonlocal seen
+        for j in range(seen + 1, k + 1):
+            for vortex, frames in zip(vortices, frame_of):
+                if j in frames:
+                    t = float(times[j])
+                    emits[vortex.name](frames[j], t, vortex.frame(frames[j], t, series.velocity(j), series.point_arrays(j)))
+        seen = max(seen, k)
+
     for k in range(max(1, len(series) - 1)):
         k1 = min(k + 1, len(series) - 1)
         t0, t1 = float(times[k]), float(times[k1])
@@ -149,9 +168,11 @@ def stream(series: Series, tracers: Sequence[Any], emit: Callable[[str], Callabl
             n_nan = int(np.count_nonzero(~np.isfinite(u).all(axis=1)))
             if n_nan:
                 nan_files[series.snapshots[j].label] = n_nan
+        snapshots_to(k)
         field.load(t0, u0, t1, u1)
         for tracer in tracers:
             tracer.interval(field, t0, t1, k == 0, emits[tracer.name])
+        snapshots_to(k1)
     return nan_files
 
 
@@ -168,12 +189,13 @@ def make_tracer(p: EntryPlan, series: Series) -> Any:
     )
 
 
-def _clear_frames(output: Path, names: Sequence[str], suffix: str) -> None:
-    """Remove frames a previous run left in the entry folders, so old and new frames never mix."""
+def _clear_frames(output: Path, names: Sequence[str], suffix: str, infix: str = "") -> None:
+    """Remove frames a previous run left in the entry folders (``<name>_<infix>NNNN<suffix>``), so old and
+    new frames never mix."""
     for name in names:
         folder = output / name
         if folder.is_dir():
-            rx = re.compile(rf"^{re.escape(name)}_\d{{4,}}{re.escape(suffix)}$")
+            rx = re.compile(rf"^{re.escape(name)}_{re.escape(infix)}\d{{4,}}{re.escape(suffix)}$")
             for f in folder.iterdir():
                 if rx.match(f.name):
                     f.unlink()
@@ -221,24 +243,32 @@ def run_recipe(
         key = "--output" if output is not None else "output"
         raise OutputError(f"{out}: cannot use this {key} folder ({exc.strerror or exc})") from None
     _clear_frames(out, [e.name for e in p.entries], ".vtp")
+    vortex_names = [v.name for v in p.vortices]
+    for suffix, infix in ((".vtp", ""), (".vtp", "lines_"), (".vtu", "volume_")):
+        _clear_frames(out, vortex_names, suffix, infix)
     tracers = [make_tracer(e, series) for e in p.entries]
-    frames: dict[str, list[dict[str, Any]]] = {e.name: [] for e in p.entries}
+    shared = VortexField(series.mesh) if p.vortices else None
+    vortices = [VortexTracer(v, shared) for v in p.vortices]
+    frames: dict[str, list[dict[str, Any]]] = {e.name: [] for e in (*p.entries, *p.vortices)}
     total = p.n_frames
     done = 0
 
     def emit_for(name: str) -> Callable[[int, float, Any], None]:
-        def emit(index: int, t: float, polydata: Any) -> None:
+        def emit(index: int, t: float, result: Any) -> None:
             nonlocal done
-            path = write_vtp(polydata, frame_path(out, name, index))
-            frames[name].append({"index": index, "time": t, "file": str(path.relative_to(out))})
+            if isinstance(result, VortexFrame):
+                frames[name].append(_write_vortex_frame(out, name, result))
+            else:
+                path = write_vtp(result, frame_path(out, name, index))
+                frames[name].append({"index": index, "time": t, "file": str(path.relative_to(out))})
             done += 1
             if progress is not None:
                 progress(name, done, total)
 
         return emit
 
-    last_needed = max((e.stop for e in p.entries), default=float(series.times[0]))
-    nan_files = stream(series, tracers, emit_for, last_needed)
+    last_needed = max([e.stop for e in p.entries] + [v.stop for v in p.vortices], default=float(series.times[0]))
+    nan_files = stream(series, tracers, emit_for, last_needed, vortices)
 
     entries: dict[str, Any] = {}
     n_nan_particles = 0
@@ -257,6 +287,8 @@ def run_recipe(
         what = "particle or streamline" if n_nan_particles == 1 else "particles or streamlines"
         warn(f"{n_nan_particles} {what} stopped at NaN velocity; NaN values in {where}")
 
+    vortex_entries = {v.plan.name: _finish_vortex(out, v, frames[v.plan.name]) for v in vortices}
+
     renders: dict[str, Any] = {}
     if render and recipe.renders:
         renders = _render_all(loaded, out, entries, series, progress)
@@ -273,11 +305,42 @@ def run_recipe(
         },
         "status_names": STATUS_NAMES,
         "entries": entries,
+        "vortices": vortex_entries,
         "renders": renders,
         "elapsed_seconds": round(_time.perf_counter() - started, 3),
     }
     write_json(manifest, out / "manifest.json")
     return manifest
+
+
+def _write_vortex_frame(out: Path, name: str, frame: VortexFrame) -> dict[str, Any]:
+    """Write one vortex frame's files; its manifest record."""
+    i = frame.index
+    record: dict[str, Any] = {"index": i, "time": frame.time, "level": frame.level}
+    record["file"] = str(write_vtp(frame.surface, frame_path(out, name, i)).relative_to(out))
+    if frame.lines is not None:
+        record["lines"] = str(write_vtp(frame.lines, out / name / f"{name}_lines_{i:04d}.vtp").relative_to(out))
+    if frame.volume_grid is not None:
+        record["volume"] = str(write_vtu(frame.volume_grid, out / name / f"{name}_volume_{i:04d}.vtu").relative_to(out))
+    record["cores"] = frame.row[3]
+    return record
+
+
+def _finish_vortex(out: Path, vortex: VortexTracer, frames: list[dict[str, Any]]) -> dict[str, Any]:
+    """Write a vortex entry's tables; its manifest entry."""
+    name, e = vortex.plan.name, vortex.entry
+    table = write_csv(FRAME_COLUMNS, vortex.rows, out / name / f"{name}.csv")
+    cores = write_csv(CORE_COLUMNS, vortex.core_rows, out / name / f"{name}_cores.csv")
+    return {
+        "criterion": e.criterion,
+        "level": e.level,
+        "level_is": e.level_is,
+        "levels_used": vortex.levels,
+        "window": [vortex.plan.start, vortex.plan.stop],
+        "frames": frames,
+        "table": str(table.relative_to(out)),
+        "core_table": str(cores.relative_to(out)),
+    }
 
 
 def _render_all(

@@ -259,7 +259,9 @@ class Series:
         self.arrays = {"point": list(first.point), "cell": list(first.cell), "field": list(first.field)}
         self.association = self._association(first, snapshots[0])
         self.times = self._times(times, first)
-        self._cache: dict[int, np.ndarray] = {0: self._velocity_of(first, snapshots[0])}
+        #: Arrays kept besides the velocity (see :meth:`keep_arrays`).
+        self.extra_names: tuple[str, ...] = ()
+        self._cache: dict[int, tuple[np.ndarray, dict[str, np.ndarray]]] = {0: (self._velocity_of(first, snapshots[0]), {})}
 
     @classmethod
     def open(cls, files: str | Sequence[str], times: Any, velocity: str | Sequence[str], base: Path | str = ".") -> "Series":
@@ -358,6 +360,28 @@ class Series:
 
     def velocity(self, k: int) -> np.ndarray:
         """Point velocity ``(n_points, 3)`` of snapshot ``k``; keeps at most the two latest in memory."""
+        return self._load(k)[0]
+
+    def point_arrays(self, k: int) -> dict[str, np.ndarray]:
+        """The arrays asked for with :meth:`keep_arrays` at snapshot ``k``, as point data ``(n_points, ...)``."""
+        return self._load(k)[1]
+
+    def keep_arrays(self, names: Sequence[str], key: str) -> None:
+        """Also keep these point or cell arrays of each snapshot read (cell arrays averaged onto points);
+        an array the first snapshot lacks is an :class:`InputError` naming the recipe ``key``."""
+        have = set(self.arrays["point"]) | set(self.arrays["cell"])
+        for name in names:
+            if name not in have:
+                raise InputError(
+                    f"{self.snapshots[0].label}: no point or cell array {name!r} for {key}"
+                    f" (arrays: {', '.join(sorted(have)) or 'none'})"
+                )
+        wanted = tuple(dict.fromkeys((*self.extra_names, *names)))
+        if wanted != self.extra_names:
+            self.extra_names = wanted
+            self._cache.clear()
+
+    def _load(self, k: int) -> tuple[np.ndarray, dict[str, np.ndarray]]:
         if k not in self._cache:
             snap = self.snapshots[k]
             data = read_file(snap)
@@ -367,11 +391,22 @@ class Series:
                     f" {data.grid.GetNumberOfCells()} cells vs {self.mesh.n_points}, {self.mesh.n_cells});"
                     " vtkflow needs one fixed mesh for the whole series"
                 )
-            self._cache[k] = self._velocity_of(data, snap)
+            self._cache[k] = (self._velocity_of(data, snap), self._extras_of(data, snap))
         self._cache[k] = self._cache.pop(k)  # most recently used last
         while len(self._cache) > 2:
             self._cache.pop(next(iter(self._cache)))
         return self._cache[k]
+
+    def _extras_of(self, data: SnapshotData, snap: Snapshot) -> dict[str, np.ndarray]:
+        out = {}
+        for name in self.extra_names:
+            if name in data.point:
+                out[name] = np.asarray(data.point[name], dtype=np.float64)
+            elif name in data.cell:
+                out[name] = self.mesh.cell_to_point(np.asarray(data.cell[name], dtype=np.float64))
+            else:
+                raise InputError(f"{snap.label}: no point or cell array {name!r} (the first snapshot has it)")
+        return out
 
     def nan_count(self, k: int) -> int:
         """Number of points whose velocity has a NaN in snapshot ``k``."""
