@@ -143,6 +143,10 @@ def check(recipe: Path = typer.Argument(..., help="Recipe file (YAML).")) -> Non
                 f"line      {e.name}: {e.entry.kind} from {e.entry.release}, window {e.start:g} .. {e.stop:g},"
                 f" {len(e.frames)} frames" + (f", {len(e.instants)} release instants" if len(e.instants) else "")
             )
+        for v in p.vortices:
+            e = v.entry
+            con.print(f"vortices  {v.name}: {e.criterion} at {e.level:g} ({e.level_is}), window {v.start:g} .. {v.stop:g},"
+                      f" {len(v.snapshots)} frames")
         for name, r in loaded.recipe.renders.items():
             con.print(f"render    {name}: {', '.join(r.lines)} coloured by {r.color_by} {list(r.range)}")
         con.print("ok")

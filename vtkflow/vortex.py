@@ -191,7 +191,6 @@ class VortexTracer:
         contour.SetInputData(g)
         contour.SetInputArrayToProcess(0, 0, 0, 0, self.entry.criterion)
         contour.SetValue(0, level if np.isfinite(level) else 0.0)
-        contour.SetMergePoints(True)
         contour.SetInterpolateAttributes(True)
         contour.SetComputeScalars(True)
         contour.Update()
