@@ -6,7 +6,9 @@ Scripts (each also runs on its own; see its docstring):
 * ``transient.py`` 10,000 pathlines through 20 snapshots on 200 k tetrahedra: vtkflow's ``advance`` vs VTK's
   ``vtkParticleTracer`` (and ``vtkParticlePathFilter``), each VTK setup guarded in a subprocess;
 * ``prep.py``      vtkflow's mesh preparation vs VTK reading the same mesh from a compressed ``.vtu``;
-* ``memory.py``    peak RSS of a recipe run over 20 vs 200 snapshots.
+* ``memory.py``    peak RSS of a recipe run over 20 vs 200 snapshots;
+* ``vortex.py``    every vortex criterion per frame on 1.2 M tetrahedra vs VTK's ``vtkGradientFilter`` (gradient,
+  vorticity and Q), and the closed-form eigenvalues vs ``numpy.linalg.eigvalsh``.
 
 Both sides run on 2 threads (VTK's SMP backend on std::thread, numba's pool). In the final table the
 ratio is vtkflow / peer: above 1 is better for rates, below 1 for times, errors and memory; the peer is
@@ -31,7 +33,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 from _common import Figure, format_table  # noqa: E402
 
-SCRIPTS = ["steady", "transient", "prep", "memory"]
+SCRIPTS = ["steady", "transient", "prep", "memory", "vortex"]
 
 
 def main() -> None:
