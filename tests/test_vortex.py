@@ -292,3 +292,27 @@ def test_vortex_recipe_errors(tmp_path):
         res = CliRunner().invoke(app, ["check", str(recipe)])
         assert res.exit_code == 2, (body, res.output)
         assert message in res.output and "Traceback" not in res.output
+
+
+def test_join_gaps_rejoins_a_broken_line_and_keeps_apart_lines_apart():
+    """Pieces of one line (some reversed) with gaps of 0.05 rejoin into one ordered line with gap 0.1; a
+    parallel line 1.0 away stays separate; with gap 0.01 nothing joins."""
+    from vtkflow.criteria import join_gaps
+
+    t = np.linspace(0.0, 3.0, 31)
+    line = np.stack([t, 0 * t, 0 * t], axis=1)
+    cuts = [(0, 8), (7, 15), (14, 31)]  # each piece starts 0.05 past the previous end
+    pieces = [line[a:b] + np.array([0.05 * i, 0, 0]) for i, (a, b) in enumerate(cuts)]
+    pieces[1] = pieces[1][::-1]
+    other = line[:10] + np.array([0.0, 1.0, 0.0])
+    parts = [pieces[2], other, pieces[0], pieces[1]]
+    xs = np.concatenate(parts)
+    lengths = np.array([len(p) for p in parts])
+    strength = xs[:, 0].copy()
+    jx, jn, js = join_gaps(xs, lengths, strength, 0.1)
+    assert sorted(jn.tolist()) == [10, 33]
+    k = int(np.argmax(jn))
+    joined = jx[sum(jn[:k]):sum(jn[:k]) + jn[k]]
+    assert np.all(np.diff(joined[:, 0]) > 0) or np.all(np.diff(joined[:, 0]) < 0)
+    np.testing.assert_array_equal(js, jx[:, 0])  # strengths travel with their vertices
+    assert len(join_gaps(xs, lengths, strength, 0.01)[1]) == 4

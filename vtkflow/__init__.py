@@ -17,6 +17,7 @@ from .releases import SHAPES, release_points
 from .run import open_series, plan, run_recipe
 from .series import Series
 from .api import trace
+from .criteria import CRITERIA, GradientOperator, evaluate
 
 __all__ = [
     "__version__",
@@ -42,4 +43,7 @@ __all__ = [
     "run_recipe",
     "Series",
     "trace",
+    "CRITERIA",
+    "GradientOperator",
+    "evaluate",
 ]

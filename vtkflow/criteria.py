@@ -498,3 +498,65 @@ def volume_inside(points: np.ndarray, conn: np.ndarray, values: np.ndarray, leve
     """Volume of the region where ``inside * (values - level) > 0``, with ``values`` linear in each tetrahedron."""
     g = inside * (np.asarray(values, dtype=np.float64) - level)
     return float(_volume_inside(np.ascontiguousarray(points, dtype=np.float64), conn, g))
+
+
+def join_gaps(xs: np.ndarray, lengths: np.ndarray, strength: np.ndarray, gap: float
+              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Join core-line pieces whose ends lie within ``gap`` of each other, nearest pairs first.
+
+    The reduced-velocity method works cell by cell with each cell's own eigenvector, so where the
+    eigenvector turns from cell to cell the crossing points two neighbours put on their shared face differ
+    and a line breaks into pieces (a known property of the method, Sujudi & Haimes 1995); bridging gaps of
+    about a cell restores the line. Each end joins at most one other end, and no loop is closed.
+    """
+    from scipy.spatial import cKDTree
+
+    n = len(lengths)
+    if n < 2:
+        return xs, lengths, strength
+    first = np.concatenate([[0], np.cumsum(lengths)[:-1]])
+    last = first + lengths - 1
+    ends = np.concatenate([xs[first], xs[last]])  # end e: piece e % n, at its start (e < n) or end
+    pairs = np.array(sorted(cKDTree(ends).query_pairs(gap, output_type="ndarray").tolist(),
+                            key=lambda p: float(np.linalg.norm(ends[p[0]] - ends[p[1]]))), dtype=np.int64).reshape(-1, 2)
+    partner = np.full(2 * n, -1, np.int64)
+    root = np.arange(n)
+
+    def find(i: int) -> int:
+        while root[i] != i:
+            root[i] = root[root[i]]
+            i = root[i]
+        return i
+
+    for a, b in pairs:  # few pieces (tens to hundreds per frame): a plain loop over candidate joins
+        if partner[a] >= 0 or partner[b] >= 0:
+            continue
+        ra, rb = find(a % n), find(b % n)
+        if ra == rb:
+            continue
+        partner[a], partner[b] = b, a
+        root[ra] = rb
+    out_x, out_s, out_n = [], [], []
+    done = np.zeros(n, bool)
+    for start in range(n):
+        # begin at a piece with a free end (every group has one: no loops are made)
+        if done[start] or (partner[start] >= 0 and partner[start + n] >= 0):
+            continue
+        piece, forward = start, partner[start] < 0  # walk away from the free end
+        xs_g, st_g = [], []
+        while True:
+            done[piece] = True
+            sl = slice(first[piece], last[piece] + 1)
+            px, ps = (xs[sl], strength[sl]) if forward else (xs[sl][::-1], strength[sl][::-1])
+            xs_g.append(px)
+            st_g.append(ps)
+            exit_end = piece + n if forward else piece
+            nxt = partner[exit_end]
+            if nxt < 0:
+                break
+            piece, forward = nxt % n, nxt < n
+        out_x.append(np.concatenate(xs_g))
+        out_s.append(np.concatenate(st_g))
+        out_n.append(len(out_x[-1]))
+    # closed loops from the chaining itself are pieces with no partners: already handled above
+    return np.concatenate(out_x), np.asarray(out_n, dtype=np.int64), np.concatenate(out_s)

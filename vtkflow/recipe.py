@@ -287,7 +287,8 @@ class Camera(Strict):
 class RenderEntry(Strict):
     """One image per frame of the first listed line entry, coloured by one array over a fixed range."""
 
-    lines: list[str] = Field(min_length=1, description="line entries drawn; frames follow the first")
+    lines: list[str] = Field(min_length=1, description="line or vortex entries drawn (vortex entries: their"
+                             " isosurfaces); frames follow the first")
     color_by: str = Field("speed", description="point array that colours the lines")
     range: tuple[float, float] = Field(description="fixed colour range [low, high], the same in every frame")
     colormap: str = Field("ember", description="one of " + ", ".join(COLORMAPS), json_schema_extra={"enum": list(COLORMAPS)})
@@ -342,12 +343,17 @@ class Recipe(Strict):
             if name in self.lines or name in self.vortices:
                 raise ValueError(f"renders.{name}: a render may not share its name with a line or vortex entry")
             for line in render.lines:
-                if line not in self.lines:
-                    raise ValueError(_unknown("line entry", line, self.lines, f"renders.{name}.lines"))
-                arrays = LINE_KINDS[self.lines[line].kind].arrays
+                if line in self.vortices:  # a vortex entry's isosurface
+                    v = self.vortices[line]
+                    kind, arrays = "vortex", (v.criterion, "speed", "vorticity_magnitude", *v.arrays)
+                elif line in self.lines:
+                    kind, arrays = self.lines[line].kind, LINE_KINDS[self.lines[line].kind].arrays
+                else:
+                    raise ValueError(_unknown("line or vortex entry", line, {**self.lines, **self.vortices},
+                                              f"renders.{name}.lines"))
                 if render.color_by not in arrays:
                     raise ValueError(
-                        f"renders.{name}.color_by: {self.lines[line].kind} files of '{line}' have no array"
+                        f"renders.{name}.color_by: {kind} files of '{line}' have no array"
                         f" {render.color_by!r}; choose one of {', '.join(arrays)}"
                     )
         return self

@@ -396,6 +396,10 @@ class FrameRenderer:
             actor = self._line_actor(i)
             actor.GetMapper().SetInputData(polydata)
             actor.SetVisibility(polydata.GetNumberOfPoints() > 0)
+            # surfaces (vortex isosurfaces) are lit to show their shape; lines keep flat colours
+            surface = polydata.GetNumberOfPolys() > 0
+            actor.GetProperty().SetLighting(surface)
+            actor.GetProperty().SetAmbient(0.35 if surface else 0.0)
         for actor in self._line_actors[len(data):]:
             actor.GetMapper().SetInputData(None)
             actor.SetVisibility(False)

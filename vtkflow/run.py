@@ -291,7 +291,7 @@ def run_recipe(
 
     renders: dict[str, Any] = {}
     if render and recipe.renders:
-        renders = _render_all(loaded, out, entries, series, progress)
+        renders = _render_all(loaded, out, {**entries, **vortex_entries}, series, progress)
 
     manifest = {
         "vtkflow_version": __version__,

@@ -23,7 +23,7 @@ import numpy as np
 
 from . import _vtk
 from ._vtk import numpy_to_vtk, vtk_to_numpy
-from .criteria import CRITERIA, GradientOperator, core_lines, evaluate, volume_inside
+from .criteria import CRITERIA, GradientOperator, core_lines, evaluate, join_gaps, volume_inside
 from .errors import RecipeError
 from .lines import TIME_RTOL
 from .output import polylines
@@ -33,6 +33,8 @@ __all__ = ["VortexPlan", "VortexField", "VortexTracer", "VortexFrame", "plan_vor
            "FRAME_COLUMNS", "CORE_COLUMNS"]
 
 VTK_TETRA = 10
+#: Core-line pieces whose ends are closer than this many (median) cell sizes are joined (see criteria.join_gaps).
+JOIN_GAP = 2.0
 #: Columns of ``<entry>.csv``, one row per frame.
 FRAME_COLUMNS = ("frame", "time", "level", "cores", "core_length", "volume", "peak", "max_strength")
 #: Columns of ``<entry>_cores.csv``, one row per core line per frame.
@@ -96,6 +98,7 @@ class VortexField:
         self.locator = mesh.locator
         self.points = self.tm.points
         self.gradient = GradientOperator(self.locator, len(self.points))
+        self.cell = float(np.median(mesh.cell_size))
         grid = _vtk.vtkUnstructuredGrid()
         pts = _vtk.vtkPoints()
         pts.SetData(numpy_to_vtk(np.ascontiguousarray(self.points), deep=True))
@@ -213,6 +216,7 @@ class VortexTracer:
         loc = self.shared.locator
         xs, lengths, strength = core_lines(self.shared.points, loc.conn, loc.nbr, f.tet_grads, f.velocity,
                                            spec.min_strength)
+        xs, lengths, strength = join_gaps(xs, lengths, strength, JOIN_GAP * self.shared.cell)
         keep_x, keep_s, keep_n, cores = [], [], [], []
         first = 0
         for n in lengths:
