@@ -248,6 +248,7 @@ def test_lamb_oseen_core_line_on_axis(lamb_oseen_run, accuracy):
         worst = max(worst, np.hypot(lines.points[:, 0] - X0, lines.points[:, 1] - Y0).max())
         assert np.ptp(lines.points[:, 2]) == pytest.approx(0.4, abs=1e-6)
         assert "swirl" in lines.point_data.keys()
+        assert lines.field_data["level"][0] == pytest.approx(frame["level"])
     accuracy("Lamb-Oseen core line off the axis / r_c", worst / 1.0, 0.05)
     assert worst < 0.05 * 1.0
 

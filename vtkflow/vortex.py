@@ -166,7 +166,7 @@ class VortexTracer:
         self.levels.append(level)
 
         surface = self._surface(f, values, level, time)
-        lines, cores = self._core_lines(f, index, time)
+        lines, cores = self._core_lines(f, index, time, level)
         volume = volume_inside(shared.points, shared.locator.conn, values, level, self.criterion.inside)
         finite = values[np.isfinite(values)]
         peak = float(finite.max() if self.criterion.inside > 0 else finite.min()) if finite.size else float("nan")
@@ -209,7 +209,7 @@ class VortexTracer:
             surface.GetFieldData().AddArray(arr)
         return surface
 
-    def _core_lines(self, f: FrameFields, index: int, time: float) -> tuple[Optional[Any], list[tuple]]:
+    def _core_lines(self, f: FrameFields, index: int, time: float, level: float) -> tuple[Optional[Any], list[tuple]]:
         spec = self.entry.core_lines
         if spec is None:
             return None, []
@@ -238,7 +238,8 @@ class VortexTracer:
             "swirl": np.concatenate(keep_s) if keep_s else np.zeros(0),
             "core_id": np.repeat(np.arange(len(keep_n)), keep_n).astype(np.int64),
         }
-        return polylines(pts, np.asarray(keep_n, dtype=np.int64), arrays, time), cores
+        field_arrays = {"level": np.array([level], dtype=np.float64)}
+        return polylines(pts, np.asarray(keep_n, dtype=np.int64), arrays, time, field_arrays), cores
 
     def _volume_grid(self, f: FrameFields, time: float, level: float) -> Any:
         mesh = self.shared.mesh
