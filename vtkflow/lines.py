@@ -20,6 +20,7 @@ from typing import Any, Callable, NamedTuple, Optional
 
 import numpy as np
 
+from .errors import RecipeError
 from .kernels import group_order
 from .particles import State, Status, TimeField, advance, place, trace_streamlines
 
@@ -55,6 +56,20 @@ def snap_times(values: np.ndarray, targets: np.ndarray, window: tuple[float, flo
         close = np.abs(cand - out) <= eps
         out[close] = cand[close]
     return out
+
+
+def entry_window(key: str, start: Optional[float], stop: Optional[float], times: np.ndarray,
+                 where: str = "") -> tuple[float, float]:
+    """An entry's time window: ``start``/``stop`` (default: the first and last snapshot times), clipped to
+    the snapshot times; a value outside them is a :class:`RecipeError` naming ``<key>.start`` or ``.stop``."""
+    t_first, t_last = float(times[0]), float(times[-1])
+    eps = TIME_RTOL * max(1.0, t_last - t_first)
+    lo = t_first if start is None else float(start)
+    hi = t_last if stop is None else float(stop)
+    for k, value in (("start", lo), ("stop", hi)):
+        if value < t_first - eps or value > t_last + eps:
+            raise RecipeError(f"{where}{key}.{k}: {value:g} lies outside the snapshot times [{t_first:g}, {t_last:g}]")
+    return max(lo, t_first), min(hi, t_last)
 
 
 class _History:

@@ -110,36 +110,29 @@ def polylines(
     return pd
 
 
-def write_vtp(polydata: Any, path: Path) -> Path:
-    """Write PolyData as VTK XML (binary, zlib-compressed) atomically."""
+def _write_xml(writer: Any, data: Any, path: Path) -> Path:
+    """Write ``data`` with a VTK XML ``writer`` (binary, zlib-compressed) atomically."""
     with atomic_path(path) as tmp:
-        w = _vtk.vtkXMLPolyDataWriter()
-        w.SetFileName(str(tmp))
-        w.SetInputData(polydata)
-        w.SetDataModeToBinary()
-        w.SetCompressorTypeToZLib()
+        writer.SetFileName(str(tmp))
+        writer.SetInputData(data)
+        writer.SetDataModeToBinary()
+        writer.SetCompressorTypeToZLib()
         with _vtk.captured_messages() as messages:
-            ok = w.Write() == 1
+            ok = writer.Write() == 1
         if not ok:
             detail = messages[0].strip().splitlines()[-1] if messages else "no detail"
             raise OutputError(f"{path}: VTK could not write the file ({detail})")
     return path
+
+
+def write_vtp(polydata: Any, path: Path) -> Path:
+    """Write PolyData as VTK XML (binary, zlib-compressed) atomically."""
+    return _write_xml(_vtk.vtkXMLPolyDataWriter(), polydata, path)
 
 
 def write_vtu(grid: Any, path: Path) -> Path:
     """Write an unstructured grid as VTK XML (binary, zlib-compressed) atomically."""
-    with atomic_path(path) as tmp:
-        w = _vtk.vtkXMLUnstructuredGridWriter()
-        w.SetFileName(str(tmp))
-        w.SetInputData(grid)
-        w.SetDataModeToBinary()
-        w.SetCompressorTypeToZLib()
-        with _vtk.captured_messages() as messages:
-            ok = w.Write() == 1
-        if not ok:
-            detail = messages[0].strip().splitlines()[-1] if messages else "no detail"
-            raise OutputError(f"{path}: VTK could not write the file ({detail})")
-    return path
+    return _write_xml(_vtk.vtkXMLUnstructuredGridWriter(), grid, path)
 
 
 def write_csv(columns: Sequence[str], rows: Sequence[Sequence[Any]], path: Path) -> Path:

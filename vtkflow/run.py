@@ -18,7 +18,7 @@ import numpy as np
 
 from . import __version__
 from .errors import InputError, OutputError, RecipeError
-from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, release_instants
+from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, entry_window, release_instants
 from .output import frame_path, write_csv, write_json, write_vtp, write_vtu
 from .particles import TimeField
 from .recipe import FrameEvery, LineEntry, LoadedRecipe
@@ -121,14 +121,7 @@ def plan_entry(
     """Window, frames and release instants of one line entry; a window outside ``times`` is a
     :class:`RecipeError` naming ``lines.<name>.start`` or ``.stop`` (after ``where``, e.g. the recipe file)."""
     key = f"lines.{name}"
-    t_first, t_last = float(times[0]), float(times[-1])
-    eps = TIME_RTOL * max(1.0, t_last - t_first)
-    start = t_first if entry.start is None else float(entry.start)
-    stop = t_last if entry.stop is None else float(entry.stop)
-    for k, value in (("start", start), ("stop", stop)):
-        if value < t_first - eps or value > t_last + eps:
-            raise RecipeError(f"{where}{key}.{k}: {value:g} lies outside the snapshot times [{t_first:g}, {t_last:g}]")
-    start, stop = max(start, t_first), min(stop, t_last)
+    start, stop = entry_window(key, entry.start, entry.stop, times, where)
     frames = frame_times(start, stop, times, entry.frames, key)
     particles = LINE_KINDS[entry.kind].particles
     instants = release_instants(start, stop, entry.every) if particles else np.zeros(0)

@@ -25,7 +25,7 @@ from . import _vtk
 from ._vtk import numpy_to_vtk, vtk_to_numpy
 from .criteria import CRITERIA, GradientOperator, core_lines, evaluate, join_gaps, volume_inside
 from .errors import RecipeError
-from .lines import TIME_RTOL
+from .lines import TIME_RTOL, entry_window
 from .output import polylines
 from .recipe import VortexEntry
 
@@ -58,13 +58,8 @@ def plan_vortex(name: str, entry: VortexEntry, times: np.ndarray, where: str = "
     """Frames of a vortex entry: every ``every``-th snapshot inside its window; a window outside the
     snapshot times (or holding none) is a :class:`RecipeError` naming ``vortices.<name>.start``/``stop``."""
     key = f"vortices.{name}"
-    t_first, t_last = float(times[0]), float(times[-1])
-    eps = TIME_RTOL * max(1.0, t_last - t_first)
-    start = t_first if entry.start is None else float(entry.start)
-    stop = t_last if entry.stop is None else float(entry.stop)
-    for k, value in (("start", start), ("stop", stop)):
-        if value < t_first - eps or value > t_last + eps:
-            raise RecipeError(f"{where}{key}.{k}: {value:g} lies outside the snapshot times [{t_first:g}, {t_last:g}]")
+    start, stop = entry_window(key, entry.start, entry.stop, times, where)
+    eps = TIME_RTOL * max(1.0, float(times[-1] - times[0]))
     inside = np.flatnonzero((times >= start - eps) & (times <= stop + eps))[:: entry.every]
     if inside.size == 0:
         raise RecipeError(f"{where}{key}: no snapshot time lies in the window [{start:g}, {stop:g}]")
