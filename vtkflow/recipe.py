@@ -56,6 +56,13 @@ Vec3 = tuple[float, float, float]
 NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 
 
+def _choice(value: str, valid: list[str], what: str) -> str:
+    """``value`` if it is one of ``valid``; else the one-line error that lists the choices."""
+    if value not in valid:
+        raise ValueError(f"unknown {what} {value!r}; choose one of {', '.join(valid)}")
+    return value
+
+
 def _check_names(names: dict[str, Any], what: str, section: str) -> None:
     for name in names:
         if not NAME_RE.match(str(name)):
@@ -180,9 +187,7 @@ class LineEntry(Strict):
     @field_validator("kind")
     @classmethod
     def _known_kind(cls, v: str) -> str:
-        if v not in LINE_KINDS:
-            raise ValueError(f"unknown line kind {v!r}; choose one of {', '.join(sorted(LINE_KINDS))}")
-        return v
+        return _choice(v, sorted(LINE_KINDS), "line kind")
 
     @model_validator(mode="after")
     def _kind_keys(self) -> "LineEntry":
@@ -245,9 +250,7 @@ class VortexEntry(Strict):
     @field_validator("criterion")
     @classmethod
     def _known_criterion(cls, v: str) -> str:
-        if v not in CRITERIA:
-            raise ValueError(f"unknown criterion {v!r}; choose one of {', '.join(CRITERIA)}")
-        return v
+        return _choice(v, list(CRITERIA), "criterion")
 
     @model_validator(mode="after")
     def _level(self) -> "VortexEntry":
@@ -304,9 +307,7 @@ class RenderEntry(Strict):
     @field_validator("colormap")
     @classmethod
     def _known_map(cls, v: str) -> str:
-        if v not in COLORMAPS:
-            raise ValueError(f"unknown colormap {v!r}; choose one of {', '.join(COLORMAPS)}")
-        return v
+        return _choice(v, list(COLORMAPS), "colormap")
 
     @model_validator(mode="after")
     def _range(self) -> "RenderEntry":
