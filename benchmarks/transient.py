@@ -6,7 +6,8 @@ window); 10,000 particles released at t = 0, uniformly in [0.3, 0.7]^3, followed
 
 * vtkflow: ``Mesh(grid)`` (timed apart), then a ``TimeField`` loaded interval by interval with the two
   bracketing snapshots (as ``run.run_recipe`` streams them) and ``particles.advance`` (RK4, a quarter cell
-  per step) with a recorder that keeps every vertex, as pathlines need;
+  per step) with a recorder that keeps every vertex, as pathlines need; a second vtkflow run interpolates
+  in time by cubic Hermite (``TimeField.load`` with the slopes of ``particles.time_slopes``);
 * VTK: ``vtkParticleTracer`` fed by a small ``VTKPythonAlgorithmBase`` source that announces the snapshot
   times (``TIME_STEPS``) and hands out the requested snapshot (precomputed, so the source costs nothing;
   its time is measured and subtracted anyway), with the mesh declared static, RK4, seeds declared static,
@@ -240,7 +241,7 @@ def main() -> None:
 
     set_threads(args.threads)
     from vtkflow.mesh import Mesh
-    from vtkflow.particles import State, Status, TimeField, advance, place
+    from vtkflow.particles import State, Status, TimeField, advance, place, time_slopes
 
     rep = Report("transient")
     rep.say(f"# transient pathlines: {machine_line()}")
@@ -258,7 +259,7 @@ def main() -> None:
     place(w, np.arange(4), seeds[:4], np.zeros(4), field)
     advance(w, 1e-3 * times[1], field, args.step, lambda *a: None)
 
-    def run_ours():
+    def run_ours(cubic: bool = False):
         chunks: list[int] = []
         kept: list[tuple] = []
 
@@ -271,7 +272,11 @@ def main() -> None:
         t0 = time.perf_counter()
         for k in range(len(times) - 1):
             tl = time.perf_counter()
-            field.load(times[k], snaps[k], times[k + 1], snaps[k + 1])
+            if cubic:  # cubic Hermite in time, slopes from the neighbouring snapshots (vtkflow's option)
+                slope = lambda j: time_slopes(times, j, snaps.__getitem__)  # noqa: E731
+                field.load(times[k], snaps[k], times[k + 1], snaps[k + 1], slope(k), slope(k + 1))
+            else:
+                field.load(times[k], snaps[k], times[k + 1], snaps[k + 1])
             t_load += time.perf_counter() - tl
             if k == 0:
                 place(state, np.arange(N), seeds, np.zeros(N), field)
@@ -280,6 +285,7 @@ def main() -> None:
         return time.perf_counter() - t0, t_load, state, chunks
 
     t_ours, t_load, state, chunks = min((run_ours() for _ in range(args.repeat)), key=lambda r: r[0])
+    t_cubic, _, state_cubic, chunks_cubic = min((run_ours(True) for _ in range(args.repeat)), key=lambda r: r[0])
     rep.say(thread_summary())
     exited = state.status == Status.exited
     steps_ours = sum(chunks[1:]) - int(exited.sum())  # every recorded vertex but the releases and exit points
@@ -326,12 +332,14 @@ def main() -> None:
     later = later_snapshot_paths(seeds[pick][ok], times) if ok.any() else np.zeros((0, 3))
     rep.say(f"accuracy at t = {WINDOW:g}: {ok.sum()} of {n_sample} sampled particles (exact path inside the cube, "
             f"alive at the end on every side); references in {t_ref:.1f} s")
-    err = {"vtkflow": np.linalg.norm(state.x[pick][ok] - ref[ok], axis=1)}
+    ok &= state_cubic.status[pick] == Status.active
+    err = {"vtkflow": np.linalg.norm(state.x[pick][ok] - ref[ok], axis=1),
+           "vtkflow cubic": np.linalg.norm(state_cubic.x[pick][ok] - ref[ok], axis=1)}
     for name, pos in vtk_pos.items():
         err[name] = np.linalg.norm(pos[pick][ok] - ref[ok], axis=1)
     for name, e in err.items():
         if e.size:
-            pos = state.x if name == "vtkflow" else vtk_pos[name]
+            pos = {"vtkflow": state.x, "vtkflow cubic": state_cubic.x}.get(name, vtk_pos.get(name))
             d_later = np.linalg.norm(pos[pick][ok] - later, axis=1)
             rep.say(f"  {name:20s} error median {np.median(e):.3e} max {e.max():.3e}   "
                     f"(distance to the later-snapshot-only paths: median {np.median(d_later):.3e})")
@@ -352,6 +360,11 @@ def main() -> None:
             rep.add("end-point error, median", np.median(err["vtkflow"]), np.median(err[best]), "",
                     note=f"{ok.sum()} particles")
             rep.add("end-point error, max", err["vtkflow"].max(), err[best].max(), "")
+            steps_cubic = sum(chunks_cubic[1:]) - int((state_cubic.status == Status.exited).sum())
+            rep.add("end-point error median, vtkflow cubic in time", np.median(err["vtkflow cubic"]),
+                    np.median(err[best]), "", note=f"time {t_cubic:.3f} s, {steps_cubic / t_cubic / 1e6:.2f} M steps/s")
+            rep.add("particle steps/s, vtkflow cubic in time", steps_cubic / t_cubic / 1e6,
+                    rb["steps"] / rb["net"] / 1e6, "M/s")
     for name, note in (("paths multiblock+static serial", "vtkParticlePathFilter, serial"),
                        ("paths multiblock+static", "vtkParticlePathFilter, threaded")):
         pf = results.get(name, {})

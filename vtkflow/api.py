@@ -38,6 +38,7 @@ def trace(
     length: Optional[float] = None,
     integrator: str = "rk4",
     tolerance: Optional[float] = None,
+    time_interpolation: str = "linear",
 ) -> list[tuple[float, Any]]:
     """Compute one line entry over a series and return its frames as ``(time, pyvista.PolyData)``.
 
@@ -50,6 +51,8 @@ def trace(
         ``{"points": [...]}``, ``{"circle": ...}``, ``{"plane": ...}``, ``{"box": ...}``) or the points.
     start, stop, every, direction, frames, step, length, integrator, tolerance
         As the keys of a recipe's line entry, with the same defaults.
+    time_interpolation : {'linear', 'cubic'}
+        As the recipe's ``data.time_interpolation``.
 
     Returns
     -------
@@ -83,5 +86,7 @@ def trace(
 
         return keep
 
-    stream(series, [tracer], emit, p.stop)
+    if time_interpolation not in ("linear", "cubic"):
+        raise RecipeError(f"trace: time_interpolation: choose linear or cubic, not {time_interpolation!r}")
+    stream(series, [tracer], emit, p.stop, cubic=time_interpolation == "cubic")
     return out

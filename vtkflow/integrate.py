@@ -42,7 +42,7 @@ def _sample(x, t, hint, mesh, field, sign, v_out, bary, need_h=True):
     where speed is that of the velocity itself (in frozen mode ``v_out`` is its unit tangent). The cell
     size is interpolated only when ``need_h`` (0.0 otherwise), and a snapshot of zero weight is not read."""
     geom, nbr, conn, origin, spacing, dims, start, items = mesh
-    values, t0, t1, frozen, time, floor = field
+    values, t0, t1, frozen, time, floor, cubic = field
     cell = _locate(x, hint, geom, nbr, origin, spacing, dims, start, items, bary)
     if cell < 0:
         v_out[0] = v_out[1] = v_out[2] = 0.0
@@ -53,24 +53,28 @@ def _sample(x, t, hint, mesh, field, sign, v_out, bary, need_h=True):
         a = min(max((tt - t0) / (t1 - t0), 0.0), 1.0)
     b0, b1, b2, b3 = bary[0], bary[1], bary[2], bary[3]
     n0, n1, n2, n3 = conn[cell, 0], conn[cell, 1], conn[cell, 2], conn[cell, 3]
+    # weights of the columns: u(t0) (0..2), u(t1) (3..5) and, cubic, the time slopes at t0 (6..8), t1 (9..11)
+    wa, wb, wc, wd = 1.0 - a, a, 0.0, 0.0
+    if cubic:  # cubic Hermite basis on [t0, t1] (slopes in time units: scaled by the interval)
+        dt01 = t1 - t0
+        wa = (1.0 + 2.0 * a) * (1.0 - a) * (1.0 - a)
+        wb = a * a * (3.0 - 2.0 * a)
+        wc = a * (1.0 - a) * (1.0 - a) * dt01
+        wd = -a * a * (1.0 - a) * dt01
     w0 = 0.0
     w1 = 0.0
     w2 = 0.0
-    if a < 1.0:  # the earlier snapshot: columns 0..2
-        w0 = b0 * values[n0, 0] + b1 * values[n1, 0] + b2 * values[n2, 0] + b3 * values[n3, 0]
-        w1 = b0 * values[n0, 1] + b1 * values[n1, 1] + b2 * values[n2, 1] + b3 * values[n3, 1]
-        w2 = b0 * values[n0, 2] + b1 * values[n1, 2] + b2 * values[n2, 2] + b3 * values[n3, 2]
-        if a > 0.0:
-            w0 *= 1.0 - a
-            w1 *= 1.0 - a
-            w2 *= 1.0 - a
-    if a > 0.0:  # the later snapshot: columns 3..5
-        w0 += a * (b0 * values[n0, 3] + b1 * values[n1, 3] + b2 * values[n2, 3] + b3 * values[n3, 3])
-        w1 += a * (b0 * values[n0, 4] + b1 * values[n1, 4] + b2 * values[n2, 4] + b3 * values[n3, 4])
-        w2 += a * (b0 * values[n0, 5] + b1 * values[n1, 5] + b2 * values[n2, 5] + b3 * values[n3, 5])
+    for col, wgt in ((0, wa), (3, wb), (6, wc), (9, wd)):
+        if wgt != 0.0:  # a snapshot (or slope) of zero weight is not read, not even through 0 * NaN
+            w0 += wgt * (b0 * values[n0, col] + b1 * values[n1, col] + b2 * values[n2, col] + b3 * values[n3, col])
+            w1 += wgt * (b0 * values[n0, col + 1] + b1 * values[n1, col + 1] + b2 * values[n2, col + 1]
+                         + b3 * values[n3, col + 1])
+            w2 += wgt * (b0 * values[n0, col + 2] + b1 * values[n1, col + 2] + b2 * values[n2, col + 2]
+                         + b3 * values[n3, col + 2])
     h = 0.0
     if need_h:
-        h = b0 * values[n0, 6] + b1 * values[n1, 6] + b2 * values[n2, 6] + b3 * values[n3, 6]
+        hc = values.shape[1] - 1  # the cell size is the last column
+        h = b0 * values[n0, hc] + b1 * values[n1, hc] + b2 * values[n2, hc] + b3 * values[n3, hc]
     if not (np.isfinite(w0) and np.isfinite(w1) and np.isfinite(w2)):
         v_out[0] = v_out[1] = v_out[2] = 0.0
         return cell, h, NAN, 0.0

@@ -30,6 +30,7 @@ __all__ = [
     "Status",
     "Sample",
     "TimeField",
+    "time_slopes",
     "FrozenField",
     "advance",
     "advance_numpy",
@@ -87,21 +88,34 @@ Sampler = Callable[[np.ndarray, np.ndarray, np.ndarray], Sample]
 
 
 class TimeField:
-    """Velocity linear in time between two snapshots, sampled through a :class:`Mesh`.
+    """Velocity between two snapshots, sampled through a :class:`Mesh`: linear in time, or cubic Hermite
+    when the time slopes at both snapshots are loaded too.
 
     Parameters
     ----------
     mesh : Mesh
+
+    Notes
+    -----
+    Cubic Hermite interpolation on ``[t0, t1]`` with ``s = (t - t0) / (t1 - t0)``:
+    ``u = (1 + 2s)(1 - s)^2 u0 + s^2 (3 - 2s) u1 + s (1 - s)^2 (t1 - t0) d0 - s^2 (1 - s) (t1 - t0) d1``
+    (e.g. Burden & Faires, Numerical Analysis, section 3.4), ``d0``, ``d1`` the time derivatives at the
+    snapshots (see :func:`time_slopes`).
     """
 
     def __init__(self, mesh: Mesh) -> None:
         self.mesh = mesh
         self.t0 = self.t1 = 0.0
+        self.cubic = False
 
-    def load(self, t0: float, u0: np.ndarray, t1: float, u1: np.ndarray) -> None:
-        """Set the bracketing snapshots ``(t0, u0)`` and ``(t1, u1)``, ``u`` of shape ``(n_points, 3)``."""
+    def load(self, t0: float, u0: np.ndarray, t1: float, u1: np.ndarray,
+             d0: Optional[np.ndarray] = None, d1: Optional[np.ndarray] = None) -> None:
+        """Set the bracketing snapshots ``(t0, u0)`` and ``(t1, u1)``, ``u`` of shape ``(n_points, 3)``; with
+        the time slopes ``d0``, ``d1`` at them (same shape) the interpolation in time is cubic Hermite."""
         self.t0, self.t1 = float(t0), float(t1)
-        self.mesh.set_point_data(np.hstack([u0, u1, self.mesh.point_size[:, None]]))
+        self.cubic = d0 is not None and d1 is not None
+        cols = [u0, u1, d0, d1] if self.cubic else [u0, u1]
+        self.mesh.set_point_data(np.hstack([*cols, self.mesh.point_size[:, None]]))
 
     def kernel_args(self, time: Optional[float] = None, floor: float = 0.0) -> tuple:
         """The plain arrays the numba engine needs: ``(mesh tuple, field tuple)``; with ``time``, the
@@ -110,26 +124,56 @@ class TimeField:
         b = loc.bins
         mesh = (loc.geom, loc.nbr, loc.conn, b.origin, b.spacing, b.dims, b.start, b.items)
         frozen = time is not None
-        field = (self.mesh.values, self.t0, self.t1, frozen, float(time or 0.0), float(floor))
+        field = (self.mesh.values, self.t0, self.t1, frozen, float(time or 0.0), float(floor), self.cubic)
         return mesh, field
 
     def weight(self, t: np.ndarray) -> np.ndarray:
-        """Interpolation weight ``a`` of the later snapshot at times ``t``."""
+        """Interpolation weight ``a`` of the later snapshot at times ``t`` (linear interpolation)."""
         if self.t1 == self.t0:
             return np.zeros_like(np.asarray(t, dtype=float))
         return np.clip((np.asarray(t, dtype=float) - self.t0) / (self.t1 - self.t0), 0.0, 1.0)
 
+    def weights(self, t: np.ndarray) -> np.ndarray:
+        """Weights ``(N, 4)`` of u0, u1, d0, d1 at times ``t`` (the slopes' weights are 0 when linear)."""
+        a = self.weight(t)
+        if not self.cubic:
+            return np.stack([1.0 - a, a, 0 * a, 0 * a], axis=1)
+        dt = self.t1 - self.t0
+        return np.stack([(1 + 2 * a) * (1 - a) ** 2, a * a * (3 - 2 * a), a * (1 - a) ** 2 * dt, -a * a * (1 - a) * dt], axis=1)
+
     def __call__(self, x: np.ndarray, t: np.ndarray, idx: Optional[np.ndarray] = None) -> Sample:
         values, inside = self.mesh.sample(x)
-        a = self.weight(t)[:, None]
-        # A snapshot with zero weight takes no part, not even through 0 * NaN.
-        v = np.where(a < 1.0, (1.0 - a) * values[:, 0:3], 0.0) + np.where(a > 0.0, a * values[:, 3:6], 0.0)
-        nan0 = ~np.isfinite(values[:, 0:3]).all(axis=1) & (a[:, 0] < 1.0)
-        nan1 = ~np.isfinite(values[:, 3:6]).all(axis=1) & (a[:, 0] > 0.0)
-        bad = inside & (nan0 | nan1)
+        w = self.weights(t)
+        v = np.zeros((len(x), 3))
+        bad = np.zeros(len(x), bool)
+        for j in range(4 if self.cubic else 2):
+            col = values[:, 3 * j:3 * j + 3]
+            used = w[:, j] != 0.0  # a column of zero weight takes no part, not even through 0 * NaN
+            v += np.where(used[:, None], w[:, j, None] * col, 0.0)
+            bad |= used & ~np.isfinite(col).all(axis=1)
+        bad &= inside
         v[bad] = 0.0
         stop = np.where(bad, int(Status.nan), 0)
-        return Sample(v, values[:, 6], inside, stop)
+        return Sample(v, values[:, -1], inside, stop)
+
+
+def time_slopes(times: np.ndarray, k: int, snapshot: Callable[[int], np.ndarray]) -> np.ndarray:
+    """Time derivative of the velocity at snapshot ``k`` from three neighbouring snapshots: the centred
+    three-point formula on uneven spacing inside the series, the one-sided one at its ends (both second
+    order, exact for fields quadratic in time; e.g. Fornberg 1988, Math. Comp. 51). ``snapshot(j)`` gives
+    snapshot ``j``'s point velocity. A series of two snapshots gives their difference quotient."""
+    n = len(times)
+    if n < 3:
+        j0, j1 = 0, min(1, n - 1)
+        return (snapshot(j1) - snapshot(j0)) / (times[j1] - times[j0]) if j1 > j0 else np.zeros_like(snapshot(k))
+    j = min(max(k - 1, 0), n - 3)  # the three snapshots j, j+1, j+2
+    ta, tb, tc = times[j], times[j + 1], times[j + 2]
+    t = times[k]
+    # derivative at t of the quadratic through (ta, tb, tc): Lagrange basis derivatives
+    ca = ((t - tb) + (t - tc)) / ((ta - tb) * (ta - tc))
+    cb = ((t - ta) + (t - tc)) / ((tb - ta) * (tb - tc))
+    cc = ((t - ta) + (t - tb)) / ((tc - ta) * (tc - tb))
+    return ca * snapshot(j) + cb * snapshot(j + 1) + cc * snapshot(j + 2)
 
 
 class FrozenField:

@@ -114,6 +114,10 @@ class Data(Strict):
     velocity: Union[str, tuple[str, str, str]] = Field(
         description="point or cell array name (3 components), or the names of three scalar arrays"
     )
+    time_interpolation: Literal["linear", "cubic"] = Field(
+        "linear", description="velocity between snapshots: linear (two snapshots in memory) or cubic Hermite with"
+        " slopes from the neighbouring snapshots (four in memory; for series saved coarsely in time)"
+    )
 
     @field_validator("files")
     @classmethod

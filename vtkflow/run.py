@@ -20,7 +20,7 @@ from . import __version__
 from .errors import InputError, OutputError, RecipeError
 from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, entry_window, release_instants
 from .output import frame_path, write_csv, write_json, write_vtp, write_vtu
-from .particles import TimeField
+from .particles import TimeField, time_slopes
 from .recipe import FrameEvery, LineEntry, LoadedRecipe
 from .releases import release_points
 from .series import Series
@@ -129,13 +129,15 @@ def plan_entry(
 
 
 def stream(series: Series, tracers: Sequence[Any], emit: Callable[[str], Callable[[int, float, Any], None]],
-           last_needed: float, vortices: Sequence[VortexTracer] = ()) -> dict[str, int]:
-    """One pass over the snapshot intervals: load two snapshots at a time and advance every tracer; each
-    vortex entry makes its frames from the snapshots as they are read.
+           last_needed: float, vortices: Sequence[VortexTracer] = (), cubic: bool = False) -> dict[str, int]:
+    """One pass over the snapshot intervals: load two snapshots at a time (with ``cubic``, their time slopes
+    from four) and advance every tracer; each vortex entry makes its frames from the snapshots as they are read.
 
     Returns the NaN point counts of the snapshots read, by file label.
     """
     emits = {t.name: emit(t.name) for t in (*tracers, *vortices)}
+    if cubic:
+        series.keep = max(series.keep, 4)
     field = TimeField(series.mesh)
     times = series.times
     nan_files: dict[str, int] = {}
@@ -162,7 +164,10 @@ def stream(series: Series, tracers: Sequence[Any], emit: Callable[[str], Callabl
             if n_nan:
                 nan_files[series.snapshots[j].label] = n_nan
         snapshots_to(k)
-        field.load(t0, u0, t1, u1)
+        if cubic and k1 > k:
+            field.load(t0, u0, t1, u1, time_slopes(times, k, series.velocity), time_slopes(times, k1, series.velocity))
+        else:
+            field.load(t0, u0, t1, u1)
         for tracer in tracers:
             tracer.interval(field, t0, t1, k == 0, emits[tracer.name])
         snapshots_to(k1)
@@ -261,7 +266,7 @@ def run_recipe(
         return emit
 
     last_needed = max([e.stop for e in p.entries] + [v.stop for v in p.vortices], default=float(series.times[0]))
-    nan_files = stream(series, tracers, emit_for, last_needed, vortices)
+    nan_files = stream(series, tracers, emit_for, last_needed, vortices, recipe.data.time_interpolation == "cubic")
 
     entries: dict[str, Any] = {}
     n_nan_particles = 0

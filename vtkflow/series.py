@@ -259,6 +259,8 @@ class Series:
         self.arrays = {"point": list(first.point), "cell": list(first.cell), "field": list(first.field)}
         self.association = self._association(first, snapshots[0])
         self.times = self._times(times, first)
+        #: Snapshots kept in memory (2; 4 for cubic interpolation in time).
+        self.keep = 2
         #: Arrays kept besides the velocity (see :meth:`keep_arrays`).
         self.extra_names: tuple[str, ...] = ()
         self._cache: dict[int, tuple[np.ndarray, dict[str, np.ndarray]]] = {0: (self._velocity_of(first, snapshots[0]), {})}
@@ -359,7 +361,7 @@ class Series:
         return float(self.times[k]), self.velocity(k)
 
     def velocity(self, k: int) -> np.ndarray:
-        """Point velocity ``(n_points, 3)`` of snapshot ``k``; keeps at most the two latest in memory."""
+        """Point velocity ``(n_points, 3)`` of snapshot ``k``; keeps at most the ``keep`` latest in memory."""
         return self._load(k)[0]
 
     def point_arrays(self, k: int) -> dict[str, np.ndarray]:
@@ -393,7 +395,7 @@ class Series:
                 )
             self._cache[k] = (self._velocity_of(data, snap), self._extras_of(data, snap))
         self._cache[k] = self._cache.pop(k)  # most recently used last
-        while len(self._cache) > 2:
+        while len(self._cache) > self.keep:
             self._cache.pop(next(iter(self._cache)))
         return self._cache[k]
 
