@@ -65,7 +65,7 @@ def _walk(x, start, geom, nbr, bary):
     return -2
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=True, nogil=True)  # not inlined: the rare fallback stays out of the hot loop's code
 def _search_bins(x, origin, spacing, dims, start, items, geom, bary):
     """The tetrahedron containing ``x`` among those listed in its bin, or -1."""
     b = 0
