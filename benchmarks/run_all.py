@@ -8,7 +8,8 @@ Scripts (each also runs on its own; see its docstring):
 * ``prep.py``      vtkflow's mesh preparation vs VTK reading the same mesh from a compressed ``.vtu``;
 * ``memory.py``    peak RSS of a recipe run over 20 vs 200 snapshots;
 * ``vortex.py``    every vortex criterion per frame on 1.2 M tetrahedra vs VTK's ``vtkGradientFilter`` (gradient,
-  vorticity and Q), and the closed-form eigenvalues vs ``numpy.linalg.eigvalsh``.
+  vorticity and Q), and the closed-form eigenvalues vs ``numpy.linalg.eigvalsh``;
+* ``render.py``    frames per second of the demo's render with 2 worker processes vs 1.
 
 Both sides run on 2 threads (VTK's SMP backend on std::thread, numba's pool). In the final table the
 ratio is vtkflow / peer: above 1 is better for rates, below 1 for times, errors and memory; the peer is
@@ -33,7 +34,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 from _common import Figure, format_table  # noqa: E402
 
-SCRIPTS = ["steady", "transient", "prep", "memory", "vortex"]
+SCRIPTS = ["steady", "transient", "prep", "memory", "vortex", "render"]
 
 
 def main() -> None:

@@ -23,7 +23,6 @@ from vtkmodules.vtkCommonDataModel import (  # noqa: F401
     vtkStaticCellLocator,
     vtkUnstructuredGrid,
 )
-from vtkmodules.vtkFiltersCore import vtkContour3DLinearGrid, vtkPolyDataConnectivityFilter  # noqa: F401
 from vtkmodules.vtkIOLegacy import vtkUnstructuredGridReader  # noqa: F401
 from vtkmodules.vtkIOXML import (  # noqa: F401
     vtkXMLPolyDataReader,

@@ -59,6 +59,8 @@ def run(
         None, "--output", "-o", help="Output folder, relative to the working folder (default: the recipe's 'output')."
     ),
     no_render: bool = typer.Option(False, "--no-render", help="Skip the 'renders' section."),
+    workers: int = typer.Option(0, "--workers", "-j", min=0,
+                                help="Processes that render frames (0: one per CPU, at most 4)."),
 ) -> None:
     """Compute every line entry of RECIPE and write VTP frames, images and manifest.json."""
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
@@ -89,7 +91,7 @@ def run(
                 typer.echo(f"{stage} {done}/{total} ({what})")
 
         with bar:
-            manifest = run_recipe(loaded, out, progress=progress, render=not no_render)
+            manifest = run_recipe(loaded, out, progress=progress, render=not no_render, workers=workers)
         where = manifest["output"]
         for name, entry in manifest["entries"].items():
             c = entry["counts"]
@@ -148,7 +150,8 @@ def check(recipe: Path = typer.Argument(..., help="Recipe file (YAML).")) -> Non
             con.print(f"vortices  {v.name}: {e.criterion} at {e.level:g} ({e.level_is}), window {v.start:g} .. {v.stop:g},"
                       f" {len(v.snapshots)} frames")
         for name, r in loaded.recipe.renders.items():
-            con.print(f"render    {name}: {', '.join(r.lines)} coloured by {r.color_by} {list(r.range)}")
+            movie = f"; movie {', '.join(r.movie.formats)} at {r.movie.fps:g} fps" if r.movie is not None else ""
+            con.print(f"render    {name}: {', '.join(r.lines)} coloured by {r.color_by} {list(r.range)}{movie}")
         con.print("ok")
 
 

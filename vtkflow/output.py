@@ -40,11 +40,14 @@ def frame_path(output: Path, entry: str, index: int, suffix: str = ".vtp") -> Pa
 
 
 @contextmanager
-def atomic_path(path: Path) -> Iterator[Path]:
-    """Yield a temporary path beside ``path``; on success rename it to ``path``, on failure remove it."""
+def atomic_path(path: Path, keep_suffix: bool = False) -> Iterator[Path]:
+    """Yield a temporary path beside ``path``; on success rename it to ``path``, on failure remove it.
+    With ``keep_suffix`` the temporary name ends in ``path``'s suffix too (for writers that pick the
+    format from it)."""
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=TMP_SUFFIX, dir=path.parent)
+        suffix = TMP_SUFFIX + (path.suffix if keep_suffix else "")
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=suffix, dir=path.parent)
     except OSError as exc:
         raise OutputError(f"{path.parent}: cannot create or write in this output folder ({exc.strerror or exc})") from None
     os.close(fd)

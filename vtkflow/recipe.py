@@ -291,6 +291,16 @@ class Camera(Strict):
         return self
 
 
+class MovieSpec(Strict):
+    """A movie of a render's frames, written after the last frame."""
+
+    formats: list[Literal["mp4", "gif"]] = Field(
+        default_factory=lambda: ["mp4"], min_length=1,
+        description="mp4 (H.264, needs even image sizes) and/or gif"
+    )
+    fps: PositiveFloat = Field(10.0, description="frames per second")
+
+
 class RenderEntry(Strict):
     """One image per frame of the first listed line entry, coloured by one array over a fixed range."""
 
@@ -307,6 +317,7 @@ class RenderEntry(Strict):
     context: list[str] = Field(
         default_factory=list, description="surface files drawn in grey for context, relative to the recipe file"
     )
+    movie: Optional[MovieSpec] = Field(None, description="also write <render>.mp4 / .gif from the frames")
 
     @field_validator("colormap")
     @classmethod
@@ -317,6 +328,8 @@ class RenderEntry(Strict):
     def _range(self) -> "RenderEntry":
         if not self.range[0] < self.range[1]:
             raise ValueError(f"range must be [low, high] with low < high, got {list(self.range)}")
+        if self.movie is not None and "mp4" in self.movie.formats and (self.size[0] % 2 or self.size[1] % 2):
+            raise ValueError(f"an mp4 movie needs an even image width and height, got size {list(self.size)}")
         return self
 
 
@@ -468,6 +481,6 @@ def json_schema() -> dict[str, Any]:
 
 
 _MODEL_NAMES = {"Recipe", "Data", "TimesSpec", "Release", "LineEntry", "RenderEntry", "Camera", "FrameEvery",
-                "VortexEntry", "Reference", "CoreLineSpec"} | {
+                "VortexEntry", "Reference", "CoreLineSpec", "MovieSpec"} | {
     getattr(s.spec, "__name__", "") for s in SHAPES.values()
 }

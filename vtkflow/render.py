@@ -57,6 +57,8 @@ from .recipe import RenderEntry
 
 __all__ = [
     "render_frame",
+    "render_job",
+    "worker_setup",
     "FrameRenderer",
     "release_window",
     "format_time",
@@ -494,6 +496,20 @@ def render_frame(
         _cached = None
         _cached = (key, pid, FrameRenderer(spec, bounds, context))
     return _cached[2].render(layers, png)
+
+
+def worker_setup() -> None:
+    """Start of a render worker process: Mesa's software rasteriser to one thread (unless the user set
+    ``LP_NUM_THREADS``), since the workers themselves fill the CPUs; set before any OpenGL context."""
+    os.environ.setdefault("LP_NUM_THREADS", "1")
+
+
+def render_job(args: tuple) -> str:
+    """:func:`render_frame` on plain arguments ``(layers, png, spec as a dict, bounds, context)``, as sent
+    to render worker processes; returns the PNG path."""
+    layers, png, spec, bounds, context = args
+    return str(render_frame([Path(p) for p in layers], Path(png), RenderEntry.model_validate(spec),
+                            np.asarray(bounds, dtype=float), [Path(c) for c in context]))
 
 
 def release_window() -> None:

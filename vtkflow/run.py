@@ -26,7 +26,7 @@ from .releases import release_points
 from .series import Series
 from .vortex import CORE_COLUMNS, FRAME_COLUMNS, VortexField, VortexFrame, VortexPlan, VortexTracer, plan_vortex
 
-__all__ = ["open_series", "plan", "plan_entry", "Plan", "EntryPlan", "run_recipe", "frame_times", "stream", "make_tracer"]
+__all__ = ["open_series", "render_workers", "plan", "plan_entry", "Plan", "EntryPlan", "run_recipe", "frame_times", "stream", "make_tracer"]
 
 Progress = Callable[[str, int, float], None]
 Warn = Callable[[str], None]
@@ -108,6 +108,12 @@ def plan(loaded: LoadedRecipe, series: Series) -> Plan:
         if ventry.arrays:
             series.keep_arrays(ventry.arrays, f"vortices.{name}.arrays")
     for name, render in recipe.renders.items():
+        if render.movie is not None:  # a missing encoder stops the run here, not after the last frame
+            from .movie import encoder_problem
+
+            problem = encoder_problem(render.movie.formats)
+            if problem:
+                raise InputError(f"renders.{name}.movie: {problem}")
         for i, context in enumerate(render.context):
             path = loaded.base / context
             if not path.is_file():
@@ -205,6 +211,7 @@ def run_recipe(
     progress: Optional[Progress] = None,
     warn: Warn = _stderr,
     render: bool = True,
+    workers: int = 0,
 ) -> dict[str, Any]:
     """Run a recipe: compute every line entry, write its frames, render, and write ``manifest.json``.
 
@@ -217,6 +224,10 @@ def run_recipe(
         ``progress(what, done, total)`` after each written frame.
     warn : callable
         Receives one-line warnings (release points dropped, NaN velocities).
+    render : bool
+        Render the ``renders`` section (and its movies).
+    workers : int
+        Processes that render frames; 0: :func:`render_workers` chooses.
 
     Returns
     -------
@@ -289,7 +300,7 @@ def run_recipe(
 
     renders: dict[str, Any] = {}
     if render and recipe.renders:
-        renders = _render_all(loaded, out, {**entries, **vortex_entries}, series, progress)
+        renders = _render_all(loaded, out, {**entries, **vortex_entries}, series, progress, render_workers(workers))
 
     manifest = {
         "vtkflow_version": __version__,
@@ -309,6 +320,15 @@ def run_recipe(
     }
     write_json(manifest, out / "manifest.json")
     return manifest
+
+
+#: Most render processes chosen automatically (each holds a render window and its frame's data).
+MAX_AUTO_WORKERS = 4
+
+
+def render_workers(asked: int = 0) -> int:
+    """Render processes: ``asked`` if positive, else one per CPU up to :data:`MAX_AUTO_WORKERS`."""
+    return asked if asked > 0 else max(1, min(os.cpu_count() or 1, MAX_AUTO_WORKERS))
 
 
 def _write_vortex_frame(out: Path, name: str, frame: VortexFrame) -> dict[str, Any]:
@@ -342,28 +362,58 @@ def _finish_vortex(out: Path, vortex: VortexTracer, frames: list[dict[str, Any]]
 
 
 def _render_all(
-    loaded: LoadedRecipe, out: Path, entries: dict[str, Any], series: Series, progress: Optional[Progress]
+    loaded: LoadedRecipe, out: Path, entries: dict[str, Any], series: Series, progress: Optional[Progress],
+    workers: int = 1, spawn: Optional[bool] = None,
 ) -> dict[str, Any]:
-    from .render import render_frame  # rendering loads OpenGL: only when asked for
-
-    result: dict[str, Any] = {}
-    total = sum(len(entries[r.lines[0]]["frames"]) for r in loaded.recipe.renders.values())
-    done = 0
+    """Render every frame of every render, then the movies: in ``workers`` spawned processes when ``spawn``
+    (default: when ``workers`` is above 1), else in this process."""
     _clear_frames(out, list(loaded.recipe.renders), ".png")
+    jobs: list[tuple[str, dict[str, Any], Any]] = []  # (render, frame record, job arguments)
     for name, spec in loaded.recipe.renders.items():
-        context = [loaded.base / c for c in spec.context]
-        images = []
+        context = [str(loaded.base / c) for c in spec.context]
+        spec_data = spec.model_dump(mode="json")
+        bounds = series.mesh.bounds.tolist()
         for frame in entries[spec.lines[0]]["frames"]:
-            layers = [out / frame["file"]]
+            layers = [str(out / frame["file"])]
             for other in spec.lines[1:]:
                 match = [f for f in entries[other]["frames"] if abs(f["time"] - frame["time"]) <= TIME_RTOL * max(1.0, abs(frame["time"]))]
                 if match:
-                    layers.append(out / match[0]["file"])
+                    layers.append(str(out / match[0]["file"]))
             png = frame_path(out, name, frame["index"], ".png")
-            render_frame(layers, png, spec, series.mesh.bounds, context)
-            images.append({"index": frame["index"], "time": frame["time"], "file": str(png.relative_to(out))})
-            done += 1
+            record = {"index": frame["index"], "time": frame["time"], "file": str(png.relative_to(out))}
+            jobs.append((name, record, (layers, str(png), spec_data, bounds, context)))
+    total = len(jobs)
+    if progress is not None and total:
+        progress(jobs[0][0], 0, total)
+    if (workers > 1 if spawn is None else spawn) and total > 1:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
+
+        from .render import render_job, worker_setup
+
+        # spawned, not forked: each worker creates its own OpenGL context and keeps one render window
+        with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                                 initializer=worker_setup) as pool:
+            for done, _ in enumerate(pool.map(render_job, [j[2] for j in jobs]), start=1):
+                if progress is not None:
+                    progress(jobs[done - 1][0], done, total)
+    else:
+        from .render import render_job  # rendering loads OpenGL: only when asked for
+
+        for done, job in enumerate(jobs, start=1):
+            render_job(job[2])
             if progress is not None:
-                progress(name, done, total)
+                progress(job[0], done, total)
+
+    result: dict[str, Any] = {}
+    for name, spec in loaded.recipe.renders.items():
+        images = [record for render, record, _ in jobs if render == name]
         result[name] = {"lines": list(spec.lines), "frames": images}
+        if spec.movie is not None:
+            from .movie import write_movie
+
+            pngs = [out / f["file"] for f in images]
+            movies = {fmt: str(write_movie(pngs, out / name / f"{name}.{fmt}", spec.movie.fps).relative_to(out))
+                      for fmt in spec.movie.formats} if pngs else {}
+            result[name]["movies"] = movies
     return result

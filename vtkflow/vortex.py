@@ -185,7 +185,9 @@ class VortexTracer:
             arr.SetName(name)
             pd.AddArray(arr)
         pd.SetActiveScalars(self.entry.criterion)
-        contour = _vtk.vtkContour3DLinearGrid()
+        from vtkmodules.vtkFiltersCore import vtkContour3DLinearGrid  # a large module: loaded when first needed
+
+        contour = vtkContour3DLinearGrid()
         contour.SetInputData(g)
         contour.SetInputArrayToProcess(0, 0, 0, 0, self.entry.criterion)
         contour.SetValue(0, level if np.isfinite(level) else 0.0)
@@ -254,7 +256,9 @@ class VortexTracer:
 
 def _drop_small_pieces(surface: Any, min_area: float) -> Any:
     """The surface without its connected pieces of area below ``min_area``."""
-    conn = _vtk.vtkPolyDataConnectivityFilter()
+    from vtkmodules.vtkFiltersCore import vtkPolyDataConnectivityFilter
+
+    conn = vtkPolyDataConnectivityFilter()
     conn.SetInputData(surface)
     conn.SetExtractionModeToAllRegions()
     conn.ColorRegionsOn()

@@ -1,0 +1,94 @@
+"""Movies and parallel rendering of a recipe's frames.
+
+Checks against something outside vtkflow: movie files are read back with imageio (its FFMPEG and pillow
+plugins: frame count, size); images rendered in one process and in two spawned worker processes are
+compared pixel by pixel (determinism: the same input gives the same PNG).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from typer.testing import CliRunner
+
+from flows import box_mesh, oscillating, write_series
+from vtkflow.cli import app
+from vtkflow.recipe import load_recipe
+from vtkflow.run import run_recipe
+
+BODY = """
+releases:
+  across: {line: {start: [0.1, 0.2, 0.5], end: [0.1, 0.8, 0.5], count: 6}}
+lines:
+  smoke: {kind: streakline, release: across, every: 0.1}
+renders:
+  view:
+    lines: [smoke]
+    color_by: speed
+    range: [0.9, 1.1]
+    size: [SIZE]
+    movie: {formats: [FORMATS], fps: 5}
+"""
+
+
+def _case(tmp_path: Path, size: str = "160, 120", formats: str = "mp4, gif") -> Path:
+    if not (tmp_path / "case").is_dir():
+        write_series(box_mesh((0, 0, 0), (2, 1, 1), (8, 4, 4)), oscillating(1.0, 0.2, 3.0),
+                     np.linspace(0.0, 0.6, 7), tmp_path / "case")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("vtkflow: 1\ndata: {files: 'case/*.vtu', velocity: U}\noutput: out\n"
+                      + BODY.replace("SIZE", size).replace("FORMATS", formats))
+    return recipe
+
+
+def test_movies_read_back_with_the_frames(tmp_path):
+    """MP4 and GIF hold every frame at the image size (read back with imageio)."""
+    import imageio.v3 as iio
+
+    manifest = run_recipe(load_recipe(_case(tmp_path)), warn=lambda m: None, workers=1)
+    out = Path(manifest["output"])
+    render = manifest["renders"]["view"]
+    assert set(render["movies"]) == {"mp4", "gif"}
+    for fmt, name in render["movies"].items():
+        frames = iio.imread(out / name, index=None)
+        assert frames.shape[:3] == (len(render["frames"]), 120, 160), fmt
+    assert not list(out.rglob("*.part*"))
+
+
+def test_two_workers_draw_the_same_images_as_one(tmp_path):
+    """Frames rendered in two spawned processes equal those of one process, pixel for pixel."""
+    recipe = _case(tmp_path, formats="gif")
+    one = run_recipe(load_recipe(recipe), tmp_path / "one", warn=lambda m: None, workers=1)
+    two = run_recipe(load_recipe(recipe), tmp_path / "two", warn=lambda m: None, workers=2)
+    import imageio.v3 as iio
+
+    files = [f["file"] for f in one["renders"]["view"]["frames"]]
+    assert files == [f["file"] for f in two["renders"]["view"]["frames"]] and len(files) == 7
+    for f in files:
+        assert np.array_equal(iio.imread(tmp_path / "one" / f), iio.imread(tmp_path / "two" / f)), f
+
+
+def test_odd_size_mp4_is_a_recipe_error(tmp_path):
+    res = CliRunner().invoke(app, ["check", str(_case(tmp_path, size="161, 120", formats="mp4"))])
+    assert res.exit_code == 2
+    assert "renders.view: an mp4 movie needs an even image width and height" in res.output
+
+
+def test_missing_encoder_is_caught_by_check(tmp_path, monkeypatch):
+    """A missing MP4 encoder is reported by `vtkflow check` (one line, exit 2), before any computing."""
+    import vtkflow.movie
+
+    monkeypatch.setattr(vtkflow.movie, "encoder_problem", lambda formats: "no ffmpeg encoder for MP4 (test)")
+    res = CliRunner().invoke(app, ["check", str(_case(tmp_path, formats="mp4"))])
+    assert res.exit_code == 2
+    assert "renders.view.movie: no ffmpeg encoder for MP4 (test)" in res.output
+    assert "Traceback" not in res.output
+
+
+@pytest.mark.parametrize("formats", [["mp4"], ["gif"], ["mp4", "gif"]])
+def test_encoder_is_found_here(formats):
+    from vtkflow.movie import encoder_problem
+
+    assert encoder_problem(formats) is None
