@@ -92,3 +92,32 @@ def test_encoder_is_found_here(formats):
     from vtkflow.movie import encoder_problem
 
     assert encoder_problem(formats) is None
+
+
+def test_graphics_reports_the_working_backend():
+    """`vtkflow graphics` test-renders with each backend (in child processes) and names the one used."""
+    res = CliRunner().invoke(app, ["graphics"])
+    assert res.exit_code == 0, res.output
+    assert "egl      works" in res.output and "renders with: egl" in res.output
+
+
+def test_no_backend_is_one_line_naming_the_packages(monkeypatch):
+    import vtkflow.render as render
+
+    monkeypatch.setattr(render, "_working", None)
+    monkeypatch.setattr(render, "vtkEGLRenderWindow", _NoContext)
+    monkeypatch.setattr(render, "probe_backend_isolated", lambda name, timeout=60.0: (False, "test"))
+    res = CliRunner().invoke(app, ["graphics"])
+    assert res.exit_code == 2
+    lines = [line for line in res.output.splitlines() if line.startswith("vtkflow: error:")]
+    assert len(lines) == 1 and "libegl1 and libgl1-mesa-dri" in lines[0] and "libosmesa6" in lines[0]
+
+
+class _NoContext:
+    """Stands in for the EGL window class on a machine where no OpenGL context can be made."""
+
+    def SetOffScreenRendering(self, on: int) -> None:
+        pass
+
+    def SupportsOpenGL(self) -> int:
+        return 0

@@ -349,3 +349,21 @@ def test_renders_without_display_noise_and_keeps_opengl_out_of_the_numeric_path(
     assert "DONE" in result.stdout
     assert result.stderr == ""  # no "bad X server connection" or any other VTK message
     assert read_png(tmp_path / "f.png").shape == (48, 64, 3)
+
+
+@pytest.mark.parametrize("name", ["viridis", "coolwarm"])
+def test_matplotlib_colour_map_ends(tmp_path: Path, name: str) -> None:
+    """A map from matplotlib's registry: lines at the range ends take matplotlib's own end colours
+    (matplotlib.colormaps[name](0.0) and (1.0), the reference), within COLOUR_TOL."""
+    import matplotlib
+
+    layer = line_layer(tmp_path / "l.vtp", ys=[0.8, -0.8], values=[0.0, 10.0])
+    image = read_png(render.render_frame([layer], tmp_path / "f.png", spec(colormap=name), BOUNDS))
+    cmap = matplotlib.colormaps[name]
+    assert np.abs(line_colour(image, 0.8) - 255.0 * np.asarray(cmap(0.0))[:3]).max() <= COLOUR_TOL
+    assert np.abs(line_colour(image, -0.8) - 255.0 * np.asarray(cmap(1.0))[:3]).max() <= COLOUR_TOL
+
+
+def test_unknown_colour_map_is_a_recipe_error() -> None:
+    with pytest.raises(Exception, match="unknown colormap 'no_such_map'; choose one of ember"):
+        spec(colormap="no_such_map")

@@ -156,6 +156,18 @@ def check(recipe: Path = typer.Argument(..., help="Recipe file (YAML).")) -> Non
 
 
 @app.command()
+def graphics() -> None:
+    """Report which offscreen rendering backend works here (a test render with each); exit 2 if none does."""
+    with _errors():
+        from .render import BACKENDS, probe_backend_isolated, working_backend
+
+        for name in BACKENDS:
+            ok, detail = probe_backend_isolated(name)
+            typer.echo(f"{name:8s} {'works' if ok else 'unavailable'}: {detail}")
+        typer.echo(f"renders with: {working_backend()}")
+
+
+@app.command()
 def inspect(files: List[Path] = typer.Argument(..., help="Mesh, series or output (.vtp) files.")) -> None:
     """Print time steps, arrays (association, components, ranges), bounds and cell types of FILES."""
     from .series import describe, expand_files, read_file

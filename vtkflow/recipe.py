@@ -32,6 +32,8 @@ from pydantic import (
 
 from ._model import Strict
 from .colormaps import COLORMAPS
+from .colormaps import choices as colour_map_choices
+from .colormaps import known as colour_map_known
 from .criteria import CRITERIA
 from .errors import RecipeError
 from .lines import LINE_KINDS
@@ -308,7 +310,8 @@ class RenderEntry(Strict):
                              " isosurfaces); frames follow the first")
     color_by: str = Field("speed", description="point array that colours the lines")
     range: tuple[float, float] = Field(description="fixed colour range [low, high], the same in every frame")
-    colormap: str = Field("ember", description="one of " + ", ".join(COLORMAPS), json_schema_extra={"enum": list(COLORMAPS)})
+    colormap: str = Field("ember", description="one of " + ", ".join(COLORMAPS) + ", or a name of matplotlib's colour map"
+                          " registry (e.g. viridis, cividis, coolwarm)")
     size: tuple[PositiveInt, PositiveInt] = Field((1280, 720), description="image width and height in pixels")
     camera: Optional[Camera] = Field(None, description="default: an oblique view that fits the domain")
     background: Vec3 = (1.0, 1.0, 1.0)
@@ -322,7 +325,9 @@ class RenderEntry(Strict):
     @field_validator("colormap")
     @classmethod
     def _known_map(cls, v: str) -> str:
-        return _choice(v, list(COLORMAPS), "colormap")
+        if not colour_map_known(v):
+            raise ValueError(f"unknown colormap {v!r}; choose one of {colour_map_choices()}")
+        return v
 
     @model_validator(mode="after")
     def _range(self) -> "RenderEntry":

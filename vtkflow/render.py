@@ -47,7 +47,7 @@ from vtkmodules.vtkRenderingCore import (
     vtkTextActor,
     vtkWindowToImageFilter,
 )
-from vtkmodules.vtkRenderingOpenGL2 import vtkEGLRenderWindow
+from vtkmodules.vtkRenderingOpenGL2 import vtkEGLRenderWindow, vtkOSOpenGLRenderWindow
 
 from .colormaps import sample
 from ._vtk import captured_messages
@@ -56,6 +56,10 @@ from .output import atomic_path
 from .recipe import RenderEntry
 
 __all__ = [
+    "BACKENDS",
+    "probe_backend",
+    "probe_backend_isolated",
+    "working_backend",
     "render_frame",
     "render_job",
     "worker_setup",
@@ -85,6 +89,101 @@ OUTLINE_COLOR = (0.5, 0.5, 0.5)
 CONTEXT_COLOR = (0.82, 0.82, 0.82)
 NAN_COLOR = (0.5, 0.5, 0.5)
 CONTEXT_SUFFIXES = (".vtp", ".vtu", ".vtk", ".stl")
+
+
+# ------------------------------------------------------------------------------------------ backends
+#: Offscreen OpenGL paths of the VTK wheel, in the order tried: the window class, and the system
+#: packages (Debian/Ubuntu names) it needs on a headless machine.
+BACKENDS = {
+    "egl": (vtkEGLRenderWindow, "libegl1 and libgl1-mesa-dri"),
+    "osmesa": (vtkOSOpenGLRenderWindow, "libosmesa6"),
+}
+_working: Optional[str] = None
+
+
+def probe_backend(name: str) -> tuple[bool, str]:
+    """Draw a red square offscreen with backend ``name`` and read it back: (works, the OpenGL renderer
+    and version, or why not)."""
+    from vtkmodules.vtkFiltersSources import vtkPlaneSource
+
+    cls, _ = BACKENDS[name]
+    with captured_messages() as messages:
+        window = cls()
+        window.SetOffScreenRendering(1)
+        window.SetSize(64, 48)
+        ok = bool(window.SupportsOpenGL())
+        detail = ""
+        if ok:
+            renderer = vtkRenderer()
+            renderer.SetBackground(0.0, 0.0, 0.0)
+            window.AddRenderer(renderer)
+            plane = vtkPlaneSource()
+            mapper = vtkPolyDataMapper()
+            mapper.SetInputConnection(plane.GetOutputPort())
+            actor = vtkActor()
+            actor.SetMapper(mapper)
+            actor.GetProperty().SetColor(1.0, 0.0, 0.0)
+            actor.GetProperty().LightingOff()
+            renderer.AddActor(actor)
+            renderer.ResetCamera()
+            window.Render()
+            grab = vtkWindowToImageFilter()
+            grab.SetInput(window)
+            grab.Update()
+            from vtkmodules.util.numpy_support import vtk_to_numpy
+
+            pixels = vtk_to_numpy(grab.GetOutput().GetPointData().GetScalars())
+            ok = bool(pixels.size) and bool(np.any((pixels[:, 0] > 200) & (pixels[:, 1] < 50)))
+            caps = window.ReportCapabilities() or ""
+            found = [line.split(":", 1)[1].strip() for line in caps.splitlines()
+                     if line.startswith(("OpenGL renderer string", "OpenGL version string"))]
+            detail = "; ".join(found)
+            window.Finalize()
+    if not ok:
+        problem = _first_error(messages) or next((m for m in messages if m.strip()), "") or "no OpenGL context"
+        return False, problem.strip().splitlines()[-1][:200]
+    return True, detail or "works"
+
+
+def probe_backend_isolated(name: str, timeout: float = 60.0) -> tuple[bool, str]:
+    """:func:`probe_backend` in a child process: a backend whose library is missing can crash the process
+    that tries it (VTK's OSMesa window does, here), so a crash is reported, not suffered."""
+    import subprocess
+    import sys
+
+    code = ("import sys; from vtkflow.render import probe_backend; ok, d = probe_backend(sys.argv[1]);"
+            " print(('1 ' if ok else '0 ') + d)")
+    try:
+        res = subprocess.run([sys.executable, "-c", code, name], capture_output=True, text=True, timeout=timeout)
+    except subprocess.TimeoutExpired:
+        return False, f"the test render did not finish in {timeout:g} s"
+    last = res.stdout.strip().splitlines()[-1] if res.stdout.strip() else ""
+    if res.returncode != 0 or not last[:2] in ("1 ", "0 "):
+        return False, f"the test render crashed (exit code {res.returncode})"
+    return last.startswith("1 "), last[2:]
+
+
+def working_backend() -> str:
+    """The backend frames are drawn with, found once per process: EGL when VTK can create its context
+    here, else OSMesa if a test render in a child process works; a :class:`VtkflowError` naming the system
+    packages to install if neither does."""
+    global _working
+    if _working is None:
+        with captured_messages():
+            egl = vtkEGLRenderWindow()
+            egl.SetOffScreenRendering(1)
+            egl_ok = bool(egl.SupportsOpenGL())
+        if egl_ok:
+            _working = "egl"
+        elif probe_backend_isolated("osmesa")[0]:
+            _working = "osmesa"
+        else:
+            packages = " or ".join(p for _, p in BACKENDS.values())
+            raise VtkflowError(
+                "offscreen rendering is unavailable: VTK could not draw through EGL or OSMesa; a headless machine"
+                f" needs the system's Mesa libraries, e.g. the Debian/Ubuntu packages {packages}"
+            )
+    return _working
 
 
 # ------------------------------------------------------------------------------------------ reading
@@ -264,16 +363,10 @@ class FrameRenderer:
         self.bounds = _check_bounds(bounds)
         surfaces = [_read_surface(Path(p)) for p in context]  # fail on bad inputs before touching OpenGL
 
-        window = vtkEGLRenderWindow()
+        window = BACKENDS[working_backend()][0]()
         window.SetOffScreenRendering(1)
         window.SetSize(int(spec.size[0]), int(spec.size[1]))
         window.SetMultiSamples(0)  # multisampling costs 2-3x per frame in software; FXAA below is cheap
-        if not window.SupportsOpenGL():
-            raise VtkflowError(
-                "offscreen rendering is unavailable: VTK could not create an OpenGL context through EGL"
-                " (a headless machine needs the system's Mesa EGL library, e.g. the Debian/Ubuntu packages"
-                " libegl1 and libgl1-mesa-dri)"
-            )
         self._window = window
         renderer = vtkRenderer()
         renderer.SetViewport(0.0, 0.0, scene_width(spec.size), 1.0)
