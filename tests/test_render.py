@@ -367,3 +367,43 @@ def test_matplotlib_colour_map_ends(tmp_path: Path, name: str) -> None:
 def test_unknown_colour_map_is_a_recipe_error() -> None:
     with pytest.raises(Exception, match="unknown colormap 'no_such_map'; choose one of ember"):
         spec(colormap="no_such_map")
+
+
+def _bright_columns(image: np.ndarray) -> np.ndarray:
+    """Columns of the scene part of the image holding line pixels (far from the background colour), in the
+    rows around the image centre, where a line at y = 0 seen from +z lies (away from the time label)."""
+    bg = 255.0 * np.array(BACKGROUND)
+    scene = image[H // 2 - 6:H // 2 + 6, : int(W * render.scene_width((W, H)))].astype(float)  # the line's rows
+    return np.flatnonzero((np.abs(scene - bg).max(axis=2) > 60).any(axis=0))
+
+
+@pytest.mark.parametrize("projection", ["perspective", "parallel"])
+def test_named_view_fits_the_box(tmp_path: Path, projection: str) -> None:
+    """View from +z fitted to the line's box: the line spans the scene width up to the fill fraction
+    (AUTO_FILL_WIDTH; in perspective the box's near corners set the fit, so the line at mid-depth spans
+    a little less), centred, in both projections (geometry lands where the camera puts it)."""
+    layer = line_layer(tmp_path / "l.vtp", ys=[0.0], values=[5.0], x=(-2.0, 2.0))
+    box = ((-2.0, 2.0), (-0.5, 0.5), (-0.1, 0.1))
+    s = spec(camera=None, view={"direction": "+z", "fit": box}, projection=projection)
+    image = read_png(render.render_frame([layer], tmp_path / "f.png", s, BOUNDS))
+    cols = _bright_columns(image)
+    width = W * render.scene_width((W, H))
+    span = (cols.max() - cols.min() + 1) / width
+    ends = (6.0 + 2.0) / width  # the line's width (6 px) rounds its two ends, plus edge smoothing
+    assert render.AUTO_FILL_WIDTH - 0.08 <= span <= render.AUTO_FILL_WIDTH + ends, span
+    assert abs((cols.max() + cols.min()) / 2 - width / 2) <= 3
+
+
+def test_title_and_units_do_not_move_the_scene(tmp_path: Path) -> None:
+    """A title and units add text only: the line's colour and place are unchanged."""
+    layer = line_layer(tmp_path / "l.vtp", ys=[0.0], values=[5.0])
+    plain = read_png(render.render_frame([layer], tmp_path / "a.png", spec(), BOUNDS))
+    render.release_window()
+    titled = read_png(render.render_frame([layer], tmp_path / "b.png", spec(title="Case A", units="m/s"), BOUNDS))
+    assert np.array_equal(line_colour(plain, 0.0), line_colour(titled, 0.0))
+    assert not np.array_equal(plain, titled)
+
+
+def test_camera_and_view_together_are_a_recipe_error() -> None:
+    with pytest.raises(Exception, match="give 'camera' or 'view', not both"):
+        spec(view={"direction": "+z"})

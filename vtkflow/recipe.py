@@ -293,6 +293,35 @@ class Camera(Strict):
         return self
 
 
+#: Named view directions: where the eye sits, seen from the centre of the fitted box (z is up, except
+#: for the views along z, where y is up). "oblique" is downstream of an x-flow, on the -y side, above.
+VIEW_DIRECTIONS = {
+    "oblique": (1.0, -1.3, 0.9), "+x": (1.0, 0.0, 0.0), "-x": (-1.0, 0.0, 0.0), "+y": (0.0, 1.0, 0.0),
+    "-y": (0.0, -1.0, 0.0), "+z": (0.0, 0.0, 1.0), "-z": (0.0, 0.0, -1.0),
+}
+
+
+class View(Strict):
+    """A camera found from a named direction, fitted to a box (default: the mesh bounds)."""
+
+    direction: str = Field("oblique", description="where the eye sits: " + ", ".join(VIEW_DIRECTIONS),
+                           json_schema_extra={"enum": list(VIEW_DIRECTIONS)})
+    fit: Optional[tuple[tuple[float, float], tuple[float, float], tuple[float, float]]] = Field(
+        None, description="[[xmin, xmax], [ymin, ymax], [zmin, zmax]] kept in view (default: the mesh bounds)"
+    )
+
+    @field_validator("direction")
+    @classmethod
+    def _known_direction(cls, v: str) -> str:
+        return _choice(v, list(VIEW_DIRECTIONS), "view direction")
+
+    @model_validator(mode="after")
+    def _box(self) -> "View":
+        if self.fit is not None and not all(lo <= hi for lo, hi in self.fit):
+            raise ValueError(f"fit must be [[xmin, xmax], [ymin, ymax], [zmin, zmax]] with min <= max, got {self.fit}")
+        return self
+
+
 class MovieSpec(Strict):
     """A movie of a render's frames, written after the last frame."""
 
@@ -313,7 +342,11 @@ class RenderEntry(Strict):
     colormap: str = Field("ember", description="one of " + ", ".join(COLORMAPS) + ", or a name of matplotlib's colour map"
                           " registry (e.g. viridis, cividis, coolwarm)")
     size: tuple[PositiveInt, PositiveInt] = Field((1280, 720), description="image width and height in pixels")
-    camera: Optional[Camera] = Field(None, description="default: an oblique view that fits the domain")
+    camera: Optional[Camera] = Field(None, description="eye, focus, up and angle (default: 'view')")
+    view: Optional[View] = Field(None, description="a named direction fitted to a box; default: oblique on the domain")
+    projection: Literal["perspective", "parallel"] = Field("perspective", description="perspective or parallel")
+    title: Optional[str] = Field(None, description="a title at the top of every image")
+    units: Optional[str] = Field(None, description="units of color_by, shown in the colour bar's title")
     background: Vec3 = (1.0, 1.0, 1.0)
     line_width: PositiveFloat = 2.0
     outline: bool = Field(True, description="draw the domain's bounding box")
@@ -333,6 +366,8 @@ class RenderEntry(Strict):
     def _range(self) -> "RenderEntry":
         if not self.range[0] < self.range[1]:
             raise ValueError(f"range must be [low, high] with low < high, got {list(self.range)}")
+        if self.camera is not None and self.view is not None:
+            raise ValueError("give 'camera' or 'view', not both")
         if self.movie is not None and "mp4" in self.movie.formats and (self.size[0] % 2 or self.size[1] % 2):
             raise ValueError(f"an mp4 movie needs an even image width and height, got size {list(self.size)}")
         return self
@@ -486,6 +521,6 @@ def json_schema() -> dict[str, Any]:
 
 
 _MODEL_NAMES = {"Recipe", "Data", "TimesSpec", "Release", "LineEntry", "RenderEntry", "Camera", "FrameEvery",
-                "VortexEntry", "Reference", "CoreLineSpec", "MovieSpec"} | {
+                "VortexEntry", "Reference", "CoreLineSpec", "MovieSpec", "View"} | {
     getattr(s.spec, "__name__", "") for s in SHAPES.values()
 }

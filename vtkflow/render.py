@@ -53,7 +53,7 @@ from .colormaps import sample
 from ._vtk import captured_messages
 from .errors import InputError, OutputError, VtkflowError
 from .output import atomic_path
-from .recipe import RenderEntry
+from .recipe import VIEW_DIRECTIONS, RenderEntry
 
 __all__ = [
     "BACKENDS",
@@ -74,8 +74,8 @@ __all__ = [
 
 TABLE_SIZE = 256
 """Colours in the lookup table built from the render's colour map."""
-AUTO_VIEW_DIRECTION = (1.0, -1.3, 0.9)
-"""Without a camera: the eye sits along this direction from the box centre (downstream, on the -y
+AUTO_VIEW_DIRECTION = VIEW_DIRECTIONS["oblique"]
+"""Without a camera or view: the eye sits along this direction from the box centre (downstream, on the -y
 side, above; z up), so a flow along +x runs from left to right across the image."""
 AUTO_VIEW_ANGLE = 30.0
 """Without a camera: the vertical view angle in degrees."""
@@ -301,6 +301,7 @@ def _check_bounds(bounds: np.ndarray) -> np.ndarray:
 
 def _place_camera(renderer: vtkRenderer, spec: RenderEntry, bounds: np.ndarray) -> None:
     camera = renderer.GetActiveCamera()
+    camera.SetParallelProjection(spec.projection == "parallel")
     if spec.camera is not None:
         position = np.asarray(spec.camera.position, dtype=float)
         focus = np.asarray(spec.camera.focus, dtype=float)
@@ -310,11 +311,17 @@ def _place_camera(renderer: vtkRenderer, spec: RenderEntry, bounds: np.ndarray) 
         camera.SetViewUp(*up)
         camera.SetViewAngle(spec.camera.angle)
         camera.OrthogonalizeViewUp()
+        if spec.projection == "parallel":  # the focus plane keeps the perspective view's height
+            height = np.linalg.norm(focus - position) * math.tan(math.radians(spec.camera.angle) / 2.0)
+            camera.SetParallelScale(float(height))
         return
-    centre = bounds.mean(axis=1)
-    back = np.asarray(AUTO_VIEW_DIRECTION, dtype=float)
+    view = spec.view
+    box = np.asarray(view.fit, dtype=float) if view is not None and view.fit is not None else bounds
+    centre = box.mean(axis=1)
+    back = np.asarray(VIEW_DIRECTIONS[view.direction if view is not None else "oblique"], dtype=float)
     back /= np.linalg.norm(back)
-    right = np.cross(-back, (0.0, 0.0, 1.0))
+    sky = np.array([0.0, 1.0, 0.0]) if abs(back[2]) > 0.99 else np.array([0.0, 0.0, 1.0])
+    right = np.cross(-back, sky)
     right /= np.linalg.norm(right)
     up = np.cross(right, -back)
     # The eye distance D that puts every box corner inside the view: a corner at offset c from the
@@ -324,7 +331,7 @@ def _place_camera(renderer: vtkRenderer, spec: RenderEntry, bounds: np.ndarray) 
     tan_v = math.tan(math.radians(AUTO_VIEW_ANGLE) / 2.0)
     tan_h = tan_v * width / height * AUTO_FILL_WIDTH
     tan_v *= AUTO_FILL_HEIGHT
-    corners = np.array(np.meshgrid(*bounds, indexing="ij")).reshape(3, -1).T - centre
+    corners = np.array(np.meshgrid(*box, indexing="ij")).reshape(3, -1).T - centre
     need = np.concatenate(
         [np.abs(corners @ right) / tan_h + corners @ back, np.abs(corners @ up) / tan_v + corners @ back]
     )
@@ -333,9 +340,14 @@ def _place_camera(renderer: vtkRenderer, spec: RenderEntry, bounds: np.ndarray) 
         distance = 1.0
     camera.SetFocalPoint(*centre)
     camera.SetPosition(*(centre + distance * back))
-    camera.SetViewUp(0.0, 0.0, 1.0)
+    camera.SetViewUp(*up)
     camera.SetViewAngle(AUTO_VIEW_ANGLE)
     camera.OrthogonalizeViewUp()
+    if spec.projection == "parallel":
+        # half the visible height: every corner within the fill fractions of width and height
+        half = max(float(np.max(np.abs(corners @ up))) / AUTO_FILL_HEIGHT,
+                   float(np.max(np.abs(corners @ right))) / (AUTO_FILL_WIDTH * width / height))
+        camera.SetParallelScale(half if half > 0.0 else 1.0)
 
 
 class FrameRenderer:
@@ -444,6 +456,19 @@ class FrameRenderer:
         prop.ShadowOff()
         renderer.AddViewProp(clock)
         self._clock = clock
+        if spec.title:
+            title = vtkTextActor()
+            title.SetInput(spec.title)
+            title.GetPositionCoordinate().SetCoordinateSystemToNormalizedViewport()
+            title.GetPositionCoordinate().SetValue(0.5, 0.97)
+            tprop = title.GetTextProperty()
+            tprop.SetColor(*text_color)
+            tprop.SetFontFamilyToArial()
+            tprop.SetFontSize(int(round(font * 1.2)))
+            tprop.SetJustificationToCentered()
+            tprop.SetVerticalJustificationToTop()
+            tprop.ShadowOff()
+            renderer.AddViewProp(title)
 
         _place_camera(renderer, spec, self.bounds)
 
@@ -504,7 +529,8 @@ class FrameRenderer:
             and p.GetPointData().GetArray(self.spec.color_by).GetNumberOfComponents() > 1
             for p, _ in data
         )
-        self._bar.SetTitle(f"|{self.spec.color_by}|" if vector else self.spec.color_by)
+        label = f"|{self.spec.color_by}|" if vector else self.spec.color_by
+        self._bar.SetTitle(f"{label} [{self.spec.units}]" if self.spec.units else label)
         time = data[0][1] if data else None
         self._clock.SetInput(format_time(time) if time is not None else "")
 
