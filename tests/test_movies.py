@@ -121,3 +121,37 @@ class _NoContext:
 
     def SupportsOpenGL(self) -> int:
         return 0
+
+
+def test_auto_range_is_found_over_all_frames_and_reused(tmp_path):
+    """range: auto is the smallest and largest speed over every frame file (read back with pyvista); the
+    colour bar is identical in the first and the last image; --render-only reuses the manifest's range."""
+    import json
+
+    import imageio.v3 as iio
+    import pyvista as pv
+
+    recipe = _case(tmp_path, formats="gif")
+    recipe.write_text(recipe.read_text().replace("range: [0.9, 1.1]", "range: auto"))
+    manifest = run_recipe(load_recipe(recipe), warn=lambda m: None, workers=1)
+    out = Path(manifest["output"])
+    speeds = np.concatenate([pv.read(out / f["file"]).point_data["speed"] for f in manifest["entries"]["smoke"]["frames"]])
+    assert manifest["renders"]["view"]["range"] == pytest.approx([speeds.min(), speeds.max()], rel=1e-12)
+    frames = manifest["renders"]["view"]["frames"]
+    first, last = iio.imread(out / frames[0]["file"]), iio.imread(out / frames[-1]["file"])
+    legend = slice(int(160 * 0.8), 160)  # the colour bar's column band at the right of a 160-pixel image
+    assert np.array_equal(first[:, legend], last[:, legend]) and not np.array_equal(first, last)
+
+    data = json.loads((out / "manifest.json").read_text())
+    data["renders"]["view"]["range"] = [0.0, 5.0]
+    (out / "manifest.json").write_text(json.dumps(data))
+    res = CliRunner().invoke(app, ["run", str(recipe), "--render-only", "--workers", "1"])
+    assert res.exit_code == 0, res.output
+    assert json.loads((out / "manifest.json").read_text())["renders"]["view"]["range"] == [0.0, 5.0]
+    assert not np.array_equal(iio.imread(out / frames[0]["file"]), first)  # drawn with the kept range
+
+
+def test_render_only_needs_an_earlier_run(tmp_path):
+    res = CliRunner().invoke(app, ["run", str(_case(tmp_path)), "--render-only"])
+    assert res.exit_code == 2
+    assert "manifest.json: no readable manifest of an earlier run to render from" in res.output

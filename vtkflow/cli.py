@@ -61,6 +61,8 @@ def run(
     no_render: bool = typer.Option(False, "--no-render", help="Skip the 'renders' section."),
     workers: int = typer.Option(0, "--workers", "-j", min=0,
                                 help="Processes that render frames (0: one per CPU, at most 4)."),
+    render_only: bool = typer.Option(False, "--render-only",
+                                     help="Only render, from the frames and manifest of an earlier run."),
 ) -> None:
     """Compute every line entry of RECIPE and write VTP frames, images and manifest.json."""
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
@@ -91,7 +93,12 @@ def run(
                 typer.echo(f"{stage} {done}/{total} ({what})")
 
         with bar:
-            manifest = run_recipe(loaded, out, progress=progress, render=not no_render, workers=workers)
+            if render_only:
+                from .run import render_recipe
+
+                manifest = render_recipe(loaded, out, progress=progress, workers=workers)
+            else:
+                manifest = run_recipe(loaded, out, progress=progress, render=not no_render, workers=workers)
         where = manifest["output"]
         for name, entry in manifest["entries"].items():
             c = entry["counts"]
@@ -151,7 +158,7 @@ def check(recipe: Path = typer.Argument(..., help="Recipe file (YAML).")) -> Non
                       f" {len(v.snapshots)} frames")
         for name, r in loaded.recipe.renders.items():
             movie = f"; movie {', '.join(r.movie.formats)} at {r.movie.fps:g} fps" if r.movie is not None else ""
-            con.print(f"render    {name}: {', '.join(r.lines)} coloured by {r.color_by} {list(r.range)}{movie}")
+            con.print(f"render    {name}: {', '.join(r.lines)} coloured by {r.color_by} {r.range if r.range == 'auto' else list(r.range)}{movie}")
         con.print("ok")
 
 

@@ -338,7 +338,11 @@ class RenderEntry(Strict):
     lines: list[str] = Field(min_length=1, description="line or vortex entries drawn (vortex entries: their"
                              " isosurfaces); frames follow the first")
     color_by: str = Field("speed", description="point array that colours the lines")
-    range: tuple[float, float] = Field(description="fixed colour range [low, high], the same in every frame")
+    range: Union[tuple[float, float], Literal["auto"]] = Field(
+        description="fixed colour range [low, high], the same in every frame; or auto: the smallest and largest"
+        " value over every frame of the render (found in a first pass, kept in the manifest and reused by"
+        " --render-only)"
+    )
     colormap: str = Field("ember", description="one of " + ", ".join(COLORMAPS) + ", or a name of matplotlib's colour map"
                           " registry (e.g. viridis, cividis, coolwarm)")
     size: tuple[PositiveInt, PositiveInt] = Field((1280, 720), description="image width and height in pixels")
@@ -364,7 +368,7 @@ class RenderEntry(Strict):
 
     @model_validator(mode="after")
     def _range(self) -> "RenderEntry":
-        if not self.range[0] < self.range[1]:
+        if self.range != "auto" and not self.range[0] < self.range[1]:
             raise ValueError(f"range must be [low, high] with low < high, got {list(self.range)}")
         if self.camera is not None and self.view is not None:
             raise ValueError("give 'camera' or 'view', not both")

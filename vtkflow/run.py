@@ -19,6 +19,7 @@ import numpy as np
 from . import __version__
 from .errors import InputError, OutputError, RecipeError
 from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, entry_window, release_instants
+from ._vtk import vtk_to_numpy
 from .output import frame_path, write_csv, write_json, write_vtp, write_vtu
 from .particles import TimeField, time_slopes
 from .recipe import FrameEvery, LineEntry, LoadedRecipe
@@ -26,7 +27,7 @@ from .releases import release_points
 from .series import Series
 from .vortex import CORE_COLUMNS, FRAME_COLUMNS, VortexField, VortexFrame, VortexPlan, VortexTracer, plan_vortex
 
-__all__ = ["open_series", "render_workers", "plan", "plan_entry", "Plan", "EntryPlan", "run_recipe", "frame_times", "stream", "make_tracer"]
+__all__ = ["open_series", "render_workers", "render_recipe", "plan", "plan_entry", "Plan", "EntryPlan", "run_recipe", "frame_times", "stream", "make_tracer"]
 
 Progress = Callable[[str, int, float], None]
 Warn = Callable[[str], None]
@@ -322,6 +323,56 @@ def run_recipe(
     return manifest
 
 
+def render_recipe(
+    loaded: LoadedRecipe, output: Optional[Path] = None, progress: Optional[Progress] = None, workers: int = 0
+) -> dict[str, Any]:
+    """Render the ``renders`` of a recipe again from the frames of an earlier run (its ``manifest.json``),
+    without computing; an ``auto`` range found by that run is reused. Returns the updated manifest."""
+    import json
+
+    recipe = loaded.recipe
+    out = Path(os.path.normpath(Path(output) if output is not None else loaded.base / recipe.output))
+    path = out / "manifest.json"
+    try:
+        manifest = json.loads(path.read_text())
+    except (OSError, ValueError) as exc:
+        raise InputError(f"{path}: no readable manifest of an earlier run to render from ({exc})") from None
+    entries = {**manifest.get("entries", {}), **manifest.get("vortices", {})}
+    for name, spec in recipe.renders.items():
+        for line in spec.lines:
+            if line not in entries:
+                raise InputError(f"{path}: renders.{name}.lines: the earlier run has no entry {line!r}")
+    series = open_series(loaded)
+    plan(loaded, series)  # the same checks as a run (encoders, context files)
+    kept = {name: r["range"] for name, r in manifest.get("renders", {}).items() if "range" in r}
+    manifest["renders"] = _render_all(loaded, out, entries, series, progress, render_workers(workers), known_ranges=kept)
+    write_json(manifest, path)
+    return manifest
+
+
+def value_range(files: Sequence[str], name: str) -> list[float]:
+    """Smallest and largest value of point array ``name`` (its magnitude for vectors) over ``files``; a
+    range of [0, 1] if no file holds a finite value, widened around a single value."""
+    from .output import read_vtp
+
+    lo, hi = np.inf, -np.inf
+    for f in files:
+        arr = read_vtp(Path(f)).GetPointData().GetArray(name)
+        if arr is None or arr.GetNumberOfTuples() == 0:
+            continue
+        v = vtk_to_numpy(arr).astype(np.float64)
+        v = np.linalg.norm(v, axis=1) if v.ndim == 2 else v
+        v = v[np.isfinite(v)]
+        if v.size:
+            lo, hi = min(lo, float(v.min())), max(hi, float(v.max()))
+    if not np.isfinite(lo):
+        return [0.0, 1.0]
+    if not hi > lo:
+        pad = 0.5 * abs(lo) if lo != 0.0 else 0.5
+        lo, hi = lo - pad, hi + pad
+    return [lo, hi]
+
+
 #: Most render processes chosen automatically (each holds a render window and its frame's data).
 MAX_AUTO_WORKERS = 4
 
@@ -363,22 +414,32 @@ def _finish_vortex(out: Path, vortex: VortexTracer, frames: list[dict[str, Any]]
 
 def _render_all(
     loaded: LoadedRecipe, out: Path, entries: dict[str, Any], series: Series, progress: Optional[Progress],
-    workers: int = 1, spawn: Optional[bool] = None,
+    workers: int = 1, spawn: Optional[bool] = None, known_ranges: Optional[dict[str, Sequence[float]]] = None,
 ) -> dict[str, Any]:
     """Render every frame of every render, then the movies: in ``workers`` spawned processes when ``spawn``
     (default: when ``workers`` is above 1), else in this process."""
     _clear_frames(out, list(loaded.recipe.renders), ".png")
     jobs: list[tuple[str, dict[str, Any], Any]] = []  # (render, frame record, job arguments)
+    ranges: dict[str, list[float]] = {}
     for name, spec in loaded.recipe.renders.items():
         context = [str(loaded.base / c) for c in spec.context]
-        spec_data = spec.model_dump(mode="json")
         bounds = series.mesh.bounds.tolist()
+        frames = []
         for frame in entries[spec.lines[0]]["frames"]:
             layers = [str(out / frame["file"])]
             for other in spec.lines[1:]:
                 match = [f for f in entries[other]["frames"] if abs(f["time"] - frame["time"]) <= TIME_RTOL * max(1.0, abs(frame["time"]))]
                 if match:
                     layers.append(str(out / match[0]["file"]))
+            frames.append((frame, layers))
+        if spec.range == "auto":  # a first pass over every file the render draws
+            kept = (known_ranges or {}).get(name)
+            ranges[name] = list(kept) if kept else value_range([p for _, layers in frames for p in layers], spec.color_by)
+            spec = spec.model_copy(update={"range": tuple(ranges[name])})
+        else:
+            ranges[name] = list(spec.range)
+        spec_data = spec.model_dump(mode="json")
+        for frame, layers in frames:
             png = frame_path(out, name, frame["index"], ".png")
             record = {"index": frame["index"], "time": frame["time"], "file": str(png.relative_to(out))}
             jobs.append((name, record, (layers, str(png), spec_data, bounds, context)))
@@ -408,7 +469,7 @@ def _render_all(
     result: dict[str, Any] = {}
     for name, spec in loaded.recipe.renders.items():
         images = [record for render, record, _ in jobs if render == name]
-        result[name] = {"lines": list(spec.lines), "frames": images}
+        result[name] = {"lines": list(spec.lines), "range": ranges[name], "frames": images}
         if spec.movie is not None:
             from .movie import write_movie
 
