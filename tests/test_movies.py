@@ -155,3 +155,29 @@ def test_render_only_needs_an_earlier_run(tmp_path):
     res = CliRunner().invoke(app, ["run", str(_case(tmp_path)), "--render-only"])
     assert res.exit_code == 2
     assert "manifest.json: no readable manifest of an earlier run to render from" in res.output
+
+
+def test_report_links_resolve_inside_the_output(tmp_path):
+    """report.html: every href and src is a relative path to a file in the output folder (opens from the
+    file system, no server); it carries the recipe and the counts."""
+    import re
+    from html.parser import HTMLParser
+
+    manifest = run_recipe(load_recipe(_case(tmp_path)), warn=lambda m: None, workers=1)
+    out = Path(manifest["output"])
+    page = (out / manifest["report"]).read_text()
+
+    links: list[str] = []
+
+    class Links(HTMLParser):
+        def handle_starttag(self, tag, attrs):
+            links.extend(v for k, v in attrs if k in ("href", "src") and v)
+
+    Links().feed(page)
+    assert len(links) > 5
+    for link in links:
+        assert not re.match(r"^[a-z]+:", link) and not link.startswith("/"), link
+        target = (out / link).resolve()
+        assert target.is_file() and out.resolve() in target.parents, link
+    assert "view.mp4" in page and "report/smoke.png" in page
+    assert "kind: streakline" in page and "<td>smoke</td><td>streakline</td>" in page

@@ -319,8 +319,16 @@ def run_recipe(
         "renders": renders,
         "elapsed_seconds": round(_time.perf_counter() - started, 3),
     }
+    manifest["report"] = "report.html"
     write_json(manifest, out / "manifest.json")
+    _report(out, manifest, loaded)
     return manifest
+
+
+def _report(out: Path, manifest: dict[str, Any], loaded: LoadedRecipe) -> None:
+    from .report import write_report  # matplotlib: only here
+
+    write_report(out, manifest, loaded.path.read_text(errors="replace"))
 
 
 def render_recipe(
@@ -346,7 +354,9 @@ def render_recipe(
     plan(loaded, series)  # the same checks as a run (encoders, context files)
     kept = {name: r["range"] for name, r in manifest.get("renders", {}).items() if "range" in r}
     manifest["renders"] = _render_all(loaded, out, entries, series, progress, render_workers(workers), known_ranges=kept)
+    manifest["report"] = "report.html"
     write_json(manifest, path)
+    _report(out, manifest, loaded)
     return manifest
 
 
