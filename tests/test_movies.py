@@ -181,3 +181,18 @@ def test_report_links_resolve_inside_the_output(tmp_path):
         assert target.is_file() and out.resolve() in target.parents, link
     assert "view.mp4" in page and "report/smoke.png" in page
     assert "kind: streakline" in page and "<td>smoke</td><td>streakline</td>" in page
+
+
+def test_boundary_surface_is_drawn(tmp_path):
+    """boundary: true writes the mesh's boundary surface (VTK's geometry filter) once and draws it."""
+    import imageio.v3 as iio
+    import pyvista as pv
+
+    recipe = _case(tmp_path, formats="gif")
+    plain = run_recipe(load_recipe(recipe), tmp_path / "a", warn=lambda m: None, workers=1)
+    recipe.write_text(recipe.read_text().replace("    movie:", "    boundary: true\n    boundary_opacity: 0.5\n    movie:"))
+    walls = run_recipe(load_recipe(recipe), tmp_path / "b", warn=lambda m: None, workers=1)
+    surface = pv.read(tmp_path / "b" / "boundary.vtp")
+    assert surface.n_cells == 2 * (8 * 4 + 8 * 4 + 4 * 4) * 2  # the box's outer faces, two triangles per quad
+    f = plain["renders"]["view"]["frames"][0]["file"]
+    assert not np.array_equal(iio.imread(tmp_path / "a" / f), iio.imread(tmp_path / "b" / f))

@@ -407,3 +407,53 @@ def test_title_and_units_do_not_move_the_scene(tmp_path: Path) -> None:
 def test_camera_and_view_together_are_a_recipe_error() -> None:
     with pytest.raises(Exception, match="give 'camera' or 'view', not both"):
         spec(view={"direction": "+z"})
+
+
+def test_single_colour_layer_needs_no_array(tmp_path: Path) -> None:
+    """A layer styled with one colour is drawn in exactly that colour (unlit lines), even without color_by."""
+    layer = line_layer(tmp_path / "l.vtp", ys=[0.0], values=[5.0], name="other")
+    s = spec(lines=["a"], styles={"a": {"color": (0.0, 0.8, 0.2)}})
+    image = read_png(render.render_frame([layer], tmp_path / "f.png", s, BOUNDS, names=["a"]))
+    assert np.abs(line_colour(image, 0.0) - 255.0 * np.array([0.0, 0.8, 0.2])).max() <= COLOUR_TOL
+
+
+def test_tubes_have_the_projected_width(tmp_path: Path) -> None:
+    """Lines styled as tubes of radius r seen from above span 2 r in the image (pinhole projection at
+    distance DIST - r, the tube's top), within 2 pixels of edge smoothing."""
+    r = 0.15
+    layer = line_layer(tmp_path / "l.vtp", ys=[0.0], values=[5.0])
+    s = spec(styles={"a": {"tube_radius": r, "color": (1.0, 1.0, 1.0)}}, line_width=1.0)
+    image = read_png(render.render_frame([layer], tmp_path / "f.png", s, BOUNDS, names=["a"]))
+    bg = 255.0 * np.array(BACKGROUND)
+    col = image[:, 95].astype(float)
+    rows = np.flatnonzero(np.abs(col - bg).max(axis=1) > 30)
+    rows = rows[(rows > H // 4) & (rows < 3 * H // 4)]  # the tube, away from the time label
+    half = (DIST - r) * math.tan(math.radians(ANGLE) / 2.0)
+    expected = 2 * r / half * H / 2.0
+    assert abs(len(rows) - expected) <= 2.0, (len(rows), expected)
+
+
+def test_opacity_blends_with_the_background(tmp_path: Path) -> None:
+    """A surface at opacity 0.5 shows half its opaque colour plus half the background (alpha blending),
+    within 2 levels of rounding."""
+    plane = vtkPlaneSource()
+    plane.SetOrigin(-1.0, -1.0, 0.0)
+    plane.SetPoint1(1.0, -1.0, 0.0)
+    plane.SetPoint2(-1.0, 1.0, 0.0)
+    plane.Update()
+    pd = plane.GetOutput()
+    arr = numpy_to_vtk(np.full(pd.GetNumberOfPoints(), 7.0), deep=True)
+    arr.SetName("speed")
+    pd.GetPointData().AddArray(arr)
+    path = write_vtp(pd, tmp_path / "s.vtp")
+    centre = (H // 2, int(W * render.scene_width((W, H))) // 2)
+    opaque = read_png(render.render_frame([path], tmp_path / "a.png", spec(), BOUNDS, names=["a"]))[centre].astype(float)
+    render.release_window()
+    half = read_png(render.render_frame([path], tmp_path / "b.png", spec(styles={"a": {"opacity": 0.5}}), BOUNDS,
+                                        names=["a"]))[centre].astype(float)
+    assert np.abs(half - (0.5 * opaque + 0.5 * 255.0 * np.array(BACKGROUND))).max() <= 2.0
+
+
+def test_styles_name_the_render_lines() -> None:
+    with pytest.raises(Exception, match="styles.b: not one of this render's lines"):
+        spec(styles={"b": {"opacity": 0.5}})

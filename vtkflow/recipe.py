@@ -332,6 +332,14 @@ class MovieSpec(Strict):
     fps: PositiveFloat = Field(10.0, description="frames per second")
 
 
+class LayerStyle(Strict):
+    """How one entry is drawn in a render (default: lines, or the surface, coloured by color_by)."""
+
+    tube_radius: Optional[PositiveFloat] = Field(None, description="draw lines as lit tubes of this radius (length units)")
+    color: Optional[Vec3] = Field(None, description="one colour [r, g, b] in 0..1 instead of colouring by color_by")
+    opacity: float = Field(1.0, gt=0.0, le=1.0, description="1 opaque; below 1 see-through (e.g. vortex surfaces)")
+
+
 class RenderEntry(Strict):
     """One image per frame of the first listed line entry, coloured by one array over a fixed range."""
 
@@ -358,6 +366,9 @@ class RenderEntry(Strict):
         default_factory=list, description="surface files drawn in grey for context, relative to the recipe file"
     )
     movie: Optional[MovieSpec] = Field(None, description="also write <render>.mp4 / .gif from the frames")
+    styles: dict[str, LayerStyle] = Field(default_factory=dict, description="per entry of 'lines': how it is drawn")
+    boundary: bool = Field(False, description="draw the mesh's boundary surface in light grey")
+    boundary_opacity: float = Field(0.25, gt=0.0, le=1.0, description="opacity of the boundary surface")
 
     @field_validator("colormap")
     @classmethod
@@ -370,6 +381,9 @@ class RenderEntry(Strict):
     def _range(self) -> "RenderEntry":
         if self.range != "auto" and not self.range[0] < self.range[1]:
             raise ValueError(f"range must be [low, high] with low < high, got {list(self.range)}")
+        for name in self.styles:
+            if name not in self.lines:
+                raise ValueError(f"styles.{name}: not one of this render's lines ({', '.join(self.lines)})")
         if self.camera is not None and self.view is not None:
             raise ValueError("give 'camera' or 'view', not both")
         if self.movie is not None and "mp4" in self.movie.formats and (self.size[0] % 2 or self.size[1] % 2):
@@ -413,7 +427,8 @@ class Recipe(Strict):
                 else:
                     raise ValueError(_unknown("line or vortex entry", line, {**self.lines, **self.vortices},
                                               f"renders.{name}.lines"))
-                if render.color_by not in arrays:
+                style = render.styles.get(line)
+                if (style is None or style.color is None) and render.color_by not in arrays:
                     raise ValueError(
                         f"renders.{name}.color_by: {kind} files of '{line}' have no array"
                         f" {render.color_by!r}; choose one of {', '.join(arrays)}"
@@ -525,6 +540,6 @@ def json_schema() -> dict[str, Any]:
 
 
 _MODEL_NAMES = {"Recipe", "Data", "TimesSpec", "Release", "LineEntry", "RenderEntry", "Camera", "FrameEvery",
-                "VortexEntry", "Reference", "CoreLineSpec", "MovieSpec", "View"} | {
+                "VortexEntry", "Reference", "CoreLineSpec", "MovieSpec", "View", "LayerStyle"} | {
     getattr(s.spec, "__name__", "") for s in SHAPES.values()
 }

@@ -35,7 +35,8 @@ import vtkmodules.vtkRenderingOpenGL2  # noqa: F401
 from vtkmodules.vtkCommonCore import vtkLookupTable
 from vtkmodules.vtkFiltersGeometry import vtkGeometryFilter
 from vtkmodules.vtkFiltersSources import vtkOutlineSource
-from vtkmodules.vtkIOGeometry import vtkSTLReader
+from vtkmodules.vtkFiltersCore import vtkTubeFilter
+from vtkmodules.vtkIOGeometry import vtkOBJReader, vtkSTLReader
 from vtkmodules.vtkIOImage import vtkPNGWriter
 from vtkmodules.vtkIOLegacy import vtkDataSetReader
 from vtkmodules.vtkIOXML import vtkXMLPolyDataReader, vtkXMLUnstructuredGridReader
@@ -88,7 +89,9 @@ needs room for its labels); the scene takes the rest."""
 OUTLINE_COLOR = (0.5, 0.5, 0.5)
 CONTEXT_COLOR = (0.82, 0.82, 0.82)
 NAN_COLOR = (0.5, 0.5, 0.5)
-CONTEXT_SUFFIXES = (".vtp", ".vtu", ".vtk", ".stl")
+CONTEXT_SUFFIXES = (".vtp", ".vtu", ".vtk", ".stl", ".obj")
+TUBE_SIDES = 10
+"""Sides of the polygon that tubes sweep along lines."""
 
 
 # ------------------------------------------------------------------------------------------ backends
@@ -212,13 +215,13 @@ def _update(algorithm: Any, path: Path, what: str) -> Any:
     return algorithm.GetOutputDataObject(0)
 
 
-def _read_layer(path: Path, color_by: str) -> tuple[Any, Optional[float]]:
-    """The PolyData of one layer, checked for the colouring array, and its time (None if absent)."""
+def _read_layer(path: Path, color_by: Optional[str]) -> tuple[Any, Optional[float]]:
+    """The PolyData of one layer, checked for the colouring array (unless None), and its time (None if absent)."""
     reader = vtkXMLPolyDataReader()
     reader.SetFileName(str(path))
     polydata = _update(reader, path, "flow-line layer (VTK XML PolyData)")
     point_data = polydata.GetPointData()
-    empty = polydata.GetNumberOfPoints() == 0 and point_data.GetNumberOfArrays() == 0
+    empty = color_by is None or (polydata.GetNumberOfPoints() == 0 and point_data.GetNumberOfArrays() == 0)
     if not empty and point_data.GetAbstractArray(color_by) is None:
         names = [point_data.GetArrayName(i) for i in range(point_data.GetNumberOfArrays())]
         listed = ", ".join(repr(n) for n in names) if names else "none"
@@ -243,6 +246,8 @@ def _read_surface(path: Path) -> Any:
         reader = vtkDataSetReader()
     elif suffix == ".stl":
         reader = vtkSTLReader()
+    elif suffix == ".obj":
+        reader = vtkOBJReader()
     else:
         kinds = ", ".join(CONTEXT_SUFFIXES)
         raise InputError(f"{path}: a context surface must be one of {kinds}, not {suffix or 'no suffix'!r}")
@@ -370,10 +375,14 @@ class FrameRenderer:
         If no OpenGL context can be created through EGL.
     """
 
-    def __init__(self, spec: RenderEntry, bounds: np.ndarray, context: Sequence[Path] = ()) -> None:
+    def __init__(self, spec: RenderEntry, bounds: np.ndarray, context: Sequence[Path] = (),
+                 boundary: Optional[Path] = None) -> None:
         self.spec = spec
         self.bounds = _check_bounds(bounds)
-        surfaces = [_read_surface(Path(p)) for p in context]  # fail on bad inputs before touching OpenGL
+        # fail on bad inputs before touching OpenGL; the mesh boundary is drawn see-through
+        surfaces = [(_read_surface(Path(p)), 1.0) for p in context]
+        if boundary is not None:
+            surfaces.append((_read_surface(Path(boundary)), float(spec.boundary_opacity)))
 
         window = BACKENDS[working_backend()][0]()
         window.SetOffScreenRendering(1)
@@ -405,7 +414,7 @@ class FrameRenderer:
             actor.GetProperty().LightingOff()
             renderer.AddActor(actor)
 
-        for surface in surfaces:
+        for surface, opacity in surfaces:
             mapper = vtkPolyDataMapper()
             mapper.SetInputData(surface)
             mapper.ScalarVisibilityOff()
@@ -413,7 +422,7 @@ class FrameRenderer:
             actor.SetMapper(mapper)
             prop = actor.GetProperty()
             prop.SetColor(*CONTEXT_COLOR)
-            prop.SetOpacity(1.0)
+            prop.SetOpacity(opacity)
             prop.SetAmbient(0.6)
             prop.SetDiffuse(0.4)
             prop.SetSpecular(0.0)
@@ -502,8 +511,9 @@ class FrameRenderer:
             self._line_actors.append(actor)
         return self._line_actors[index]
 
-    def render(self, layers: Sequence[Path], png: Path) -> Path:
-        """Draw ``layers`` (VTP flow lines) and write the image to ``png`` atomically; return ``png``.
+    def render(self, layers: Sequence[Path], png: Path, names: Optional[Sequence[str]] = None) -> Path:
+        """Draw ``layers`` (VTP flow lines or surfaces) and write the image to ``png`` atomically; return
+        ``png``. ``names`` are the layers' entry names, for their ``spec.styles``.
 
         Raises
         ------
@@ -511,23 +521,41 @@ class FrameRenderer:
             If a layer is missing, unreadable, or lacks the point array ``spec.color_by``.
         """
         png = Path(png)
-        data = [_read_layer(Path(p), self.spec.color_by) for p in layers]
-        for i, (polydata, _) in enumerate(data):
+        styles = [self.spec.styles.get(n) for n in names] if names is not None else [None] * len(layers)
+        data = [_read_layer(Path(p), None if st is not None and st.color is not None else self.spec.color_by)
+                for p, st in zip(layers, styles)]
+        for i, ((polydata, _), style) in enumerate(zip(data, styles)):
             actor = self._line_actor(i)
-            actor.GetMapper().SetInputData(polydata)
+            mapper = actor.GetMapper()
+            tubes = style is not None and style.tube_radius is not None and polydata.GetNumberOfLines() > 0
+            if tubes:
+                tube = vtkTubeFilter()
+                tube.SetInputData(polydata)
+                tube.SetRadius(float(style.tube_radius))
+                tube.SetNumberOfSides(TUBE_SIDES)
+                tube.CappingOn()
+                tube.Update()
+                mapper.SetInputData(tube.GetOutput())
+            else:
+                mapper.SetInputData(polydata)
             actor.SetVisibility(polydata.GetNumberOfPoints() > 0)
-            # surfaces (vortex isosurfaces) are lit to show their shape; lines keep flat colours
-            surface = polydata.GetNumberOfPolys() > 0
-            actor.GetProperty().SetLighting(surface)
-            actor.GetProperty().SetAmbient(0.35 if surface else 0.0)
+            # surfaces (vortex isosurfaces) and tubes are lit to show their shape; lines keep flat colours
+            lit = tubes or polydata.GetNumberOfPolys() > 0
+            prop = actor.GetProperty()
+            prop.SetLighting(lit)
+            prop.SetAmbient(0.35 if lit else 0.0)
+            single = style is not None and style.color is not None
+            mapper.SetScalarVisibility(not single)
+            prop.SetColor(*(style.color if single else (1.0, 1.0, 1.0)))
+            prop.SetOpacity(style.opacity if style is not None else 1.0)
         for actor in self._line_actors[len(data):]:
             actor.GetMapper().SetInputData(None)
             actor.SetVisibility(False)
 
         vector = any(
-            p.GetPointData().GetArray(self.spec.color_by) is not None
+            (st is None or st.color is None) and p.GetPointData().GetArray(self.spec.color_by) is not None
             and p.GetPointData().GetArray(self.spec.color_by).GetNumberOfComponents() > 1
-            for p, _ in data
+            for (p, _), st in zip(data, styles)
         )
         label = f"|{self.spec.color_by}|" if vector else self.spec.color_by
         self._bar.SetTitle(f"{label} [{self.spec.units}]" if self.spec.units else label)
@@ -579,6 +607,8 @@ def render_frame(
     spec: RenderEntry,
     bounds: np.ndarray,
     context: Sequence[Path] = (),
+    names: Optional[Sequence[str]] = None,
+    boundary: Optional[Path] = None,
 ) -> Path:
     """Render one frame to ``png`` (written atomically) and return ``png``.
 
@@ -595,7 +625,11 @@ def render_frame(
     bounds : (3, 2) array
         The mesh domain ``[[xmin, xmax], [ymin, ymax], [zmin, zmax]]``: outline and automatic camera.
     context : paths
-        Surfaces drawn in light grey (.vtp, .vtu, .vtk, .stl).
+        Surfaces drawn in light grey (.vtp, .vtu, .vtk, .stl, .obj).
+    names : entry names of the layers, optional
+        For the layers' ``spec.styles``.
+    boundary : path, optional
+        The mesh's boundary surface, drawn light grey at ``spec.boundary_opacity``.
 
     Consecutive calls with the same ``spec``, ``bounds`` and ``context`` reuse one render window;
     :func:`release_window` frees it. Use :class:`FrameRenderer` directly to control its lifetime.
@@ -606,15 +640,15 @@ def render_frame(
         A layer or context file is missing or unreadable, or a layer lacks ``spec.color_by``.
     """
     global _cached
-    key = _key(spec, bounds, context)
+    key = (_key(spec, bounds, context), str(boundary))
     pid = os.getpid()
     if _cached is None or _cached[0] != key or _cached[1] != pid:
         if _cached is not None and _cached[1] == pid:
             _cached[2].close()
         # A window inherited through fork belongs to the parent's OpenGL context: drop it unused.
         _cached = None
-        _cached = (key, pid, FrameRenderer(spec, bounds, context))
-    return _cached[2].render(layers, png)
+        _cached = (key, pid, FrameRenderer(spec, bounds, context, boundary))
+    return _cached[2].render(layers, png, names)
 
 
 def worker_setup() -> None:
@@ -624,11 +658,13 @@ def worker_setup() -> None:
 
 
 def render_job(args: tuple) -> str:
-    """:func:`render_frame` on plain arguments ``(layers, png, spec as a dict, bounds, context)``, as sent
+    """:func:`render_frame` on plain arguments ``(layers, png, spec as a dict, bounds, context, names,
+    boundary)``, as sent
     to render worker processes; returns the PNG path."""
-    layers, png, spec, bounds, context = args
+    layers, png, spec, bounds, context, names, boundary = args
     return str(render_frame([Path(p) for p in layers], Path(png), RenderEntry.model_validate(spec),
-                            np.asarray(bounds, dtype=float), [Path(c) for c in context]))
+                            np.asarray(bounds, dtype=float), [Path(c) for c in context], names,
+                            Path(boundary) if boundary else None))
 
 
 def release_window() -> None:

@@ -360,6 +360,16 @@ def render_recipe(
     return manifest
 
 
+def _boundary_surface(series: Series, out: Path) -> Path:
+    """Write the mesh's boundary surface as ``<output>/boundary.vtp``; its path."""
+    from vtkmodules.vtkFiltersGeometry import vtkGeometryFilter
+
+    geometry = vtkGeometryFilter()
+    geometry.SetInputData(series.mesh.grid)
+    geometry.Update()
+    return write_vtp(geometry.GetOutput(), out / "boundary.vtp")
+
+
 def value_range(files: Sequence[str], name: str) -> list[float]:
     """Smallest and largest value of point array ``name`` (its magnitude for vectors) over ``files``; a
     range of [0, 1] if no file holds a finite value, widened around a single value."""
@@ -431,28 +441,35 @@ def _render_all(
     _clear_frames(out, list(loaded.recipe.renders), ".png")
     jobs: list[tuple[str, dict[str, Any], Any]] = []  # (render, frame record, job arguments)
     ranges: dict[str, list[float]] = {}
+    boundary_file: Optional[str] = None
     for name, spec in loaded.recipe.renders.items():
         context = [str(loaded.base / c) for c in spec.context]
         bounds = series.mesh.bounds.tolist()
         frames = []
         for frame in entries[spec.lines[0]]["frames"]:
-            layers = [str(out / frame["file"])]
+            layers, names = [str(out / frame["file"])], [spec.lines[0]]
             for other in spec.lines[1:]:
                 match = [f for f in entries[other]["frames"] if abs(f["time"] - frame["time"]) <= TIME_RTOL * max(1.0, abs(frame["time"]))]
                 if match:
                     layers.append(str(out / match[0]["file"]))
-            frames.append((frame, layers))
+                    names.append(other)
+            frames.append((frame, layers, names))
+        if spec.boundary and boundary_file is None:
+            boundary_file = str(_boundary_surface(series, out))
+        boundary = boundary_file if spec.boundary else None
         if spec.range == "auto":  # a first pass over every file the render draws
             kept = (known_ranges or {}).get(name)
-            ranges[name] = list(kept) if kept else value_range([p for _, layers in frames for p in layers], spec.color_by)
+            colored = [n for n in spec.lines if spec.styles.get(n) is None or spec.styles[n].color is None]
+            files = [p for _, layers, names in frames for p, n in zip(layers, names) if n in colored]
+            ranges[name] = list(kept) if kept else value_range(files, spec.color_by)
             spec = spec.model_copy(update={"range": tuple(ranges[name])})
         else:
             ranges[name] = list(spec.range)
         spec_data = spec.model_dump(mode="json")
-        for frame, layers in frames:
+        for frame, layers, names in frames:
             png = frame_path(out, name, frame["index"], ".png")
             record = {"index": frame["index"], "time": frame["time"], "file": str(png.relative_to(out))}
-            jobs.append((name, record, (layers, str(png), spec_data, bounds, context)))
+            jobs.append((name, record, (layers, str(png), spec_data, bounds, context, names, boundary)))
     total = len(jobs)
     if progress is not None and total:
         progress(jobs[0][0], 0, total)
