@@ -196,3 +196,53 @@ def test_boundary_surface_is_drawn(tmp_path):
     assert surface.n_cells == 2 * (8 * 4 + 8 * 4 + 4 * 4) * 2  # the box's outer faces, two triangles per quad
     f = plain["renders"]["view"]["frames"][0]["file"]
     assert not np.array_equal(iio.imread(tmp_path / "a" / f), iio.imread(tmp_path / "b" / f))
+
+
+def test_slice_plane_shows_the_field_values(tmp_path):
+    """A slice z = 0.2 through a Lamb–Oseen vortex's volume file, seen from +z, coloured by speed over
+    [0, 1] with 'greys': at the axis speed 0 takes the map's first colour; at radius 1.5 the colour is that
+    of the analytic speed u_theta(1.5) (Lamb 1932), within 0.02 in value (linear interpolation in cells of
+    0.2) plus COLOUR rounding."""
+    import imageio.v3 as iio
+
+    from flows import lamb_oseen
+    from vtkflow.colormaps import sample
+
+    gamma, rc = 2 * np.pi, 1.0
+    write_series(box_mesh((-2, -2, 0), (2, 2, 0.4), (20, 20, 2)), lamb_oseen(gamma, rc), [0.0, 1.0], tmp_path / "case")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text(
+        "vtkflow: 1\ndata: {files: 'case/*.vtu', velocity: U}\noutput: out\n"
+        "vortices:\n  v: {criterion: q, level: 0.3, volume: true, core_lines: null}\n"
+        "renders:\n  top:\n    lines: [v]\n    color_by: speed\n    range: [0.0, 1.0]\n    colormap: greys\n"
+        "    size: [200, 160]\n    outline: false\n    background: [0.0, 0.3, 0.0]\n"
+        "    view: {direction: +z, fit: [[-2, 2], [-2, 2], [0.2, 0.2]]}\n    projection: parallel\n"
+        "    styles: {v: {color: [0.0, 0.3, 0.0], opacity: 1.0}}\n"
+        "    slice: {entry: v, origin: [0, 0, 0.2], normal: [0, 0, 1]}\n"
+    )
+    manifest = run_recipe(load_recipe(recipe), warn=lambda m: None, workers=1)
+    out = Path(manifest["output"])
+    image = iio.imread(out / manifest["renders"]["top"]["frames"][0]["file"]).astype(float)
+    from vtkflow.render import AUTO_FILL_HEIGHT, AUTO_FILL_WIDTH, scene_width
+
+    width = 200 * scene_width((200, 160))
+    half_h = max(2.0 / AUTO_FILL_HEIGHT, 2.0 / (AUTO_FILL_WIDTH * width / 160))  # the parallel scale
+    cx, cy = width / 2.0, 160 / 2.0
+    colours = sample("greys", 256) * 255.0
+
+    def pixel(x: float) -> np.ndarray:
+        col = int(round(cx + x / half_h * 80.0 - 0.5))
+        return image[int(cy), col]
+
+    assert np.abs(pixel(0.0) - colours[0]).max() <= 4.0
+    speed = gamma / (2 * np.pi * 1.5) * (1 - np.exp(-(1.5**2) / rc**2))
+    near = [colours[int(round(255 * np.clip(v, 0, 1)))] for v in (speed - 0.02, speed + 0.02)]
+    got = pixel(1.5)
+    assert np.all(got >= np.minimum(*near) - 3.0) and np.all(got <= np.maximum(*near) + 3.0), (got, near)
+
+
+def test_slice_needs_a_volume_entry(tmp_path):
+    recipe = _case(tmp_path, formats="gif")
+    recipe.write_text(recipe.read_text().replace("    movie:", "    slice: {entry: smoke, origin: [0, 0, 0], normal: [0, 0, 1]}\n    movie:"))
+    res = CliRunner().invoke(app, ["check", str(recipe)])
+    assert res.exit_code == 2 and "renders.view.slice.entry: 'smoke' is not a vortex entry with volume: true" in res.output

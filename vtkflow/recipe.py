@@ -340,6 +340,26 @@ class LayerStyle(Strict):
     opacity: float = Field(1.0, gt=0.0, le=1.0, description="1 opaque; below 1 see-through (e.g. vortex surfaces)")
 
 
+class SliceSpec(Strict):
+    """A plane cut through the criteria a vortex entry writes on the mesh (its ``volume`` files), coloured
+    by the render's color_by over the render's range."""
+
+    entry: str = Field(description="a vortex entry with volume: true")
+    origin: Vec3
+    normal: Vec3
+    opacity: float = Field(1.0, gt=0.0, le=1.0)
+
+    @model_validator(mode="after")
+    def _plane(self) -> "SliceSpec":
+        if not any(self.normal):
+            raise ValueError("normal must not be zero")
+        return self
+
+
+#: Point arrays of a vortex entry's volume files (what a slice can be coloured by).
+VOLUME_ARRAYS = ("q", "lambda2", "delta", "swirl", "vorticity", "vorticity_magnitude", "speed")
+
+
 class RenderEntry(Strict):
     """One image per frame of the first listed line entry, coloured by one array over a fixed range."""
 
@@ -367,6 +387,7 @@ class RenderEntry(Strict):
     )
     movie: Optional[MovieSpec] = Field(None, description="also write <render>.mp4 / .gif from the frames")
     styles: dict[str, LayerStyle] = Field(default_factory=dict, description="per entry of 'lines': how it is drawn")
+    slice: Optional[SliceSpec] = Field(None, description="a plane cut through a vortex entry's volume files")
     boundary: bool = Field(False, description="draw the mesh's boundary surface in light grey")
     boundary_opacity: float = Field(0.25, gt=0.0, le=1.0, description="opacity of the boundary surface")
 
@@ -416,6 +437,12 @@ class Recipe(Strict):
             if entry.release not in self.releases:
                 raise ValueError(_unknown("release", entry.release, self.releases, f"lines.{name}.release"))
         for name, render in self.renders.items():
+            cut = render.slice
+            if cut is not None:
+                if cut.entry not in self.vortices or not self.vortices[cut.entry].volume:
+                    raise ValueError(f"renders.{name}.slice.entry: {cut.entry!r} is not a vortex entry with volume: true")
+                if render.color_by not in VOLUME_ARRAYS:
+                    raise ValueError(f"renders.{name}.color_by: a slice is coloured by one of {', '.join(VOLUME_ARRAYS)}")
             if name in self.lines or name in self.vortices:
                 raise ValueError(f"renders.{name}: a render may not share its name with a line or vortex entry")
             for line in render.lines:
@@ -540,6 +567,7 @@ def json_schema() -> dict[str, Any]:
 
 
 _MODEL_NAMES = {"Recipe", "Data", "TimesSpec", "Release", "LineEntry", "RenderEntry", "Camera", "FrameEvery",
-                "VortexEntry", "Reference", "CoreLineSpec", "MovieSpec", "View", "LayerStyle"} | {
+                "VortexEntry", "Reference", "CoreLineSpec", "MovieSpec", "View", "LayerStyle",
+                "SliceSpec"} | {
     getattr(s.spec, "__name__", "") for s in SHAPES.values()
 }

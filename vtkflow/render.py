@@ -35,7 +35,8 @@ import vtkmodules.vtkRenderingOpenGL2  # noqa: F401
 from vtkmodules.vtkCommonCore import vtkLookupTable
 from vtkmodules.vtkFiltersGeometry import vtkGeometryFilter
 from vtkmodules.vtkFiltersSources import vtkOutlineSource
-from vtkmodules.vtkFiltersCore import vtkTubeFilter
+from vtkmodules.vtkCommonDataModel import vtkPlane
+from vtkmodules.vtkFiltersCore import vtkCutter, vtkTubeFilter
 from vtkmodules.vtkIOGeometry import vtkOBJReader, vtkSTLReader
 from vtkmodules.vtkIOImage import vtkPNGWriter
 from vtkmodules.vtkIOLegacy import vtkDataSetReader
@@ -429,6 +430,30 @@ class FrameRenderer:
             renderer.AddActor(actor)
 
         self._line_actors: list[vtkActor] = []
+        self._slice: Optional[tuple[Any, vtkActor]] = None
+        if spec.slice is not None:
+            plane = vtkPlane()
+            plane.SetOrigin(*spec.slice.origin)
+            plane.SetNormal(*spec.slice.normal)
+            reader = vtkXMLUnstructuredGridReader()
+            cutter = vtkCutter()
+            cutter.SetCutFunction(plane)
+            cutter.SetInputConnection(reader.GetOutputPort())
+            mapper = vtkPolyDataMapper()
+            mapper.SetInputConnection(cutter.GetOutputPort())
+            mapper.SetLookupTable(self._lut)
+            mapper.UseLookupTableScalarRangeOn()
+            mapper.SetScalarModeToUsePointFieldData()
+            mapper.SelectColorArray(spec.color_by)
+            mapper.SetColorModeToMapScalars()
+            mapper.InterpolateScalarsBeforeMappingOn()
+            actor = vtkActor()
+            actor.SetMapper(mapper)
+            actor.GetProperty().LightingOff()  # flat: a pixel's colour reads back as its value
+            actor.GetProperty().SetOpacity(spec.slice.opacity)
+            actor.SetVisibility(False)
+            renderer.AddActor(actor)
+            self._slice = (reader, actor)
 
         bar = vtkScalarBarActor()
         bar.SetLookupTable(self._lut)
@@ -511,9 +536,11 @@ class FrameRenderer:
             self._line_actors.append(actor)
         return self._line_actors[index]
 
-    def render(self, layers: Sequence[Path], png: Path, names: Optional[Sequence[str]] = None) -> Path:
+    def render(self, layers: Sequence[Path], png: Path, names: Optional[Sequence[str]] = None,
+               volume: Optional[Path] = None) -> Path:
         """Draw ``layers`` (VTP flow lines or surfaces) and write the image to ``png`` atomically; return
-        ``png``. ``names`` are the layers' entry names, for their ``spec.styles``.
+        ``png``. ``names`` are the layers' entry names, for their ``spec.styles``; ``volume`` is the
+        vortex entry's volume file that ``spec.slice`` cuts at this frame.
 
         Raises
         ------
@@ -548,6 +575,15 @@ class FrameRenderer:
             mapper.SetScalarVisibility(not single)
             prop.SetColor(*(style.color if single else (1.0, 1.0, 1.0)))
             prop.SetOpacity(style.opacity if style is not None else 1.0)
+        if self._slice is not None:
+            reader, actor = self._slice
+            if volume is not None:
+                volume = Path(volume)
+                if not volume.is_file():
+                    raise InputError(f"{volume}: no such file (the volume file a slice cuts)")
+                reader.SetFileName(str(volume))
+                reader.Modified()
+            actor.SetVisibility(volume is not None)
         for actor in self._line_actors[len(data):]:
             actor.GetMapper().SetInputData(None)
             actor.SetVisibility(False)
@@ -609,6 +645,7 @@ def render_frame(
     context: Sequence[Path] = (),
     names: Optional[Sequence[str]] = None,
     boundary: Optional[Path] = None,
+    volume: Optional[Path] = None,
 ) -> Path:
     """Render one frame to ``png`` (written atomically) and return ``png``.
 
@@ -630,6 +667,8 @@ def render_frame(
         For the layers' ``spec.styles``.
     boundary : path, optional
         The mesh's boundary surface, drawn light grey at ``spec.boundary_opacity``.
+    volume : path, optional
+        The volume file (.vtu) that ``spec.slice`` cuts at this frame.
 
     Consecutive calls with the same ``spec``, ``bounds`` and ``context`` reuse one render window;
     :func:`release_window` frees it. Use :class:`FrameRenderer` directly to control its lifetime.
@@ -648,7 +687,7 @@ def render_frame(
         # A window inherited through fork belongs to the parent's OpenGL context: drop it unused.
         _cached = None
         _cached = (key, pid, FrameRenderer(spec, bounds, context, boundary))
-    return _cached[2].render(layers, png, names)
+    return _cached[2].render(layers, png, names, volume)
 
 
 def worker_setup() -> None:
@@ -659,12 +698,12 @@ def worker_setup() -> None:
 
 def render_job(args: tuple) -> str:
     """:func:`render_frame` on plain arguments ``(layers, png, spec as a dict, bounds, context, names,
-    boundary)``, as sent
+    boundary, volume)``, as sent
     to render worker processes; returns the PNG path."""
-    layers, png, spec, bounds, context, names, boundary = args
+    layers, png, spec, bounds, context, names, boundary, volume = args
     return str(render_frame([Path(p) for p in layers], Path(png), RenderEntry.model_validate(spec),
                             np.asarray(bounds, dtype=float), [Path(c) for c in context], names,
-                            Path(boundary) if boundary else None))
+                            Path(boundary) if boundary else None, Path(volume) if volume else None))
 
 
 def release_window() -> None:

@@ -453,23 +453,28 @@ def _render_all(
                 if match:
                     layers.append(str(out / match[0]["file"]))
                     names.append(other)
-            frames.append((frame, layers, names))
+            volume = None
+            if spec.slice is not None:
+                match = [f for f in entries[spec.slice.entry]["frames"]
+                         if abs(f["time"] - frame["time"]) <= TIME_RTOL * max(1.0, abs(frame["time"])) and "volume" in f]
+                volume = str(out / match[0]["volume"]) if match else None
+            frames.append((frame, layers, names, volume))
         if spec.boundary and boundary_file is None:
             boundary_file = str(_boundary_surface(series, out))
         boundary = boundary_file if spec.boundary else None
         if spec.range == "auto":  # a first pass over every file the render draws
             kept = (known_ranges or {}).get(name)
             colored = [n for n in spec.lines if spec.styles.get(n) is None or spec.styles[n].color is None]
-            files = [p for _, layers, names in frames for p, n in zip(layers, names) if n in colored]
+            files = [p for _, layers, names, _ in frames for p, n in zip(layers, names) if n in colored]
             ranges[name] = list(kept) if kept else value_range(files, spec.color_by)
             spec = spec.model_copy(update={"range": tuple(ranges[name])})
         else:
             ranges[name] = list(spec.range)
         spec_data = spec.model_dump(mode="json")
-        for frame, layers, names in frames:
+        for frame, layers, names, volume in frames:
             png = frame_path(out, name, frame["index"], ".png")
             record = {"index": frame["index"], "time": frame["time"], "file": str(png.relative_to(out))}
-            jobs.append((name, record, (layers, str(png), spec_data, bounds, context, names, boundary)))
+            jobs.append((name, record, (layers, str(png), spec_data, bounds, context, names, boundary, volume)))
     total = len(jobs)
     if progress is not None and total:
         progress(jobs[0][0], 0, total)
