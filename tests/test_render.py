@@ -457,3 +457,21 @@ def test_opacity_blends_with_the_background(tmp_path: Path) -> None:
 def test_styles_name_the_render_lines() -> None:
     with pytest.raises(Exception, match="styles.b: not one of this render's lines"):
         spec(styles={"b": {"opacity": 0.5}})
+
+
+@pytest.mark.parametrize("colormap", ["ember", "viridis"])
+def test_colour_bar_ends_are_the_map_ends(tmp_path: Path, colormap: str) -> None:
+    """The colour bar (legend at the right) holds the map's first colour at its bottom and its last at its
+    top (colours from the map's own definition: our control points, or matplotlib's registry)."""
+    from vtkflow.colormaps import sample
+
+    layer = line_layer(tmp_path / "l.vtp", ys=[0.0], values=[5.0])
+    image = read_png(render.render_frame([layer], tmp_path / "f.png", spec(colormap=colormap), BOUNDS))
+    legend = image[:, int(W * render.scene_width((W, H))):].astype(float)
+    ends = sample(colormap, 256)[[0, -1]] * 255.0
+    rows = []
+    for colour in ends:
+        hit = np.abs(legend - colour).max(axis=2) <= COLOUR_TOL
+        assert hit.sum() >= 10, colour  # a band of the bar, not a stray pixel
+        rows.append(np.nonzero(hit)[0].mean())
+    assert rows[0] > rows[1] + H / 4  # low end at the bottom, high end at the top
