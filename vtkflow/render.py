@@ -439,14 +439,8 @@ class FrameRenderer:
             cutter = vtkCutter()
             cutter.SetCutFunction(plane)
             cutter.SetInputConnection(reader.GetOutputPort())
-            mapper = vtkPolyDataMapper()
+            mapper = self._colour_mapper()
             mapper.SetInputConnection(cutter.GetOutputPort())
-            mapper.SetLookupTable(self._lut)
-            mapper.UseLookupTableScalarRangeOn()
-            mapper.SetScalarModeToUsePointFieldData()
-            mapper.SelectColorArray(spec.color_by)
-            mapper.SetColorModeToMapScalars()
-            mapper.InterpolateScalarsBeforeMappingOn()
             actor = vtkActor()
             actor.SetMapper(mapper)
             actor.GetProperty().LightingOff()  # flat: a pixel's colour reads back as its value
@@ -517,16 +511,21 @@ class FrameRenderer:
         self._grab = grab
         self._writer = writer
 
+    def _colour_mapper(self) -> vtkPolyDataMapper:
+        """A mapper that colours by ``spec.color_by`` through the render's table over its fixed range."""
+        mapper = vtkPolyDataMapper()
+        mapper.SetLookupTable(self._lut)
+        mapper.UseLookupTableScalarRangeOn()  # the fixed range, never the data's
+        mapper.SetScalarModeToUsePointFieldData()
+        mapper.SelectColorArray(self.spec.color_by)
+        mapper.SetColorModeToMapScalars()
+        mapper.InterpolateScalarsBeforeMappingOn()
+        mapper.ScalarVisibilityOn()
+        return mapper
+
     def _line_actor(self, index: int) -> vtkActor:
         while len(self._line_actors) <= index:
-            mapper = vtkPolyDataMapper()
-            mapper.SetLookupTable(self._lut)
-            mapper.UseLookupTableScalarRangeOn()  # the fixed range, never the data's
-            mapper.SetScalarModeToUsePointFieldData()
-            mapper.SelectColorArray(self.spec.color_by)
-            mapper.SetColorModeToMapScalars()
-            mapper.InterpolateScalarsBeforeMappingOn()
-            mapper.ScalarVisibilityOn()
+            mapper = self._colour_mapper()
             actor = vtkActor()
             actor.SetMapper(mapper)
             prop = actor.GetProperty()

@@ -21,6 +21,19 @@ __all__ = ["write_report", "CONTACT_FRAMES"]
 CONTACT_FRAMES = 12
 
 
+def _table(header: list[str], rows: list[list[str]]) -> str:
+    """An HTML table; cells are given escaped (they may hold links)."""
+    head = "".join(f"<th>{html.escape(h)}</th>" for h in header)
+    body = "".join("<tr>" + "".join(f"<td>{c}</td>" for c in row) + "</tr>" for row in rows)
+    return f"<table><tr>{head}</tr>{body}</table>"
+
+
+def _figure(out: Path, name: str, times: list[float], series: dict[str, list[float]], title: str) -> str:
+    """Plot ``series`` over ``times`` into ``<out>/report/<name>.png``; the HTML that shows it."""
+    png = _plot(out / "report" / f"{name}.png", times, series, title)
+    return f"<figure><img src='{html.escape(png.relative_to(out).as_posix())}' alt='{html.escape(name)}'></figure>"
+
+
 def _plot(path: Path, times: list[float], series: dict[str, list[float]], title: str) -> Path:
     import matplotlib
 
@@ -50,7 +63,6 @@ def _vertex_counts(out: Path, frames: list[dict[str, Any]]) -> list[float]:
 def write_report(out: Path, manifest: dict[str, Any], recipe_text: str) -> Path:
     """Write ``report.html`` (and its plots) into the output folder ``out``; returns its path."""
     out = Path(out)
-    plots = out / "report"
     esc = html.escape
     parts = [
         "<!DOCTYPE html><html><head><meta charset='utf-8'><title>vtkflow run report</title><style>",
@@ -69,37 +81,28 @@ def write_report(out: Path, manifest: dict[str, Any], recipe_text: str) -> Path:
     ]
     entries = manifest.get("entries", {})
     if entries:
-        parts.append("<h2>Line entries</h2><table><tr><th>entry</th><th>kind</th><th>frames</th><th>released</th>"
-                     "<th>exited</th><th>stopped</th><th>dropped at release</th></tr>")
-        for name, e in entries.items():
-            c = e["counts"]
-            parts.append(f"<tr><td>{esc(name)}</td><td>{esc(e['kind'])}</td><td>{len(e['frames'])}</td>"
-                         f"<td>{c['released']}</td><td>{c['exited']}</td><td>{c['stopped']}</td>"
-                         f"<td>{c['dropped_at_release']}</td></tr>")
-        parts.append("</table>")
-        for name, e in entries.items():
-            if e["frames"]:
-                png = _plot(plots / f"{name}.png", [f["time"] for f in e["frames"]],
-                            {"vertices": _vertex_counts(out, e["frames"])}, f"{name}: vertices per frame")
-                parts.append(f"<figure><img src='{esc(png.relative_to(out).as_posix())}' alt='{esc(name)}'></figure>")
+        rows = [[esc(name), esc(e["kind"]), str(len(e["frames"]))]
+                + [str(e["counts"][k]) for k in ("released", "exited", "stopped", "dropped_at_release")]
+                for name, e in entries.items()]
+        parts.append("<h2>Line entries</h2>" + _table(
+            ["entry", "kind", "frames", "released", "exited", "stopped", "dropped at release"], rows))
+        parts += [_figure(out, name, [f["time"] for f in e["frames"]], {"vertices": _vertex_counts(out, e["frames"])},
+                          f"{name}: vertices per frame") for name, e in entries.items() if e["frames"]]
     vortices = manifest.get("vortices", {})
     if vortices:
-        parts.append("<h2>Vortex entries</h2><table><tr><th>entry</th><th>criterion</th><th>level</th>"
-                     "<th>level used (first, last frame)</th><th>frames</th><th>tables</th></tr>")
-        for name, v in vortices.items():
-            used = v["levels_used"]
-            parts.append(f"<tr><td>{esc(name)}</td><td>{esc(v['criterion'])}</td><td>{v['level']:g} ({esc(v['level_is'])})</td>"
-                         f"<td>{used[0]:.6g}, {used[-1]:.6g}</td><td>{len(v['frames'])}</td>"
-                         f"<td><a href='{esc(v['table'])}'>frames</a>, <a href='{esc(v['core_table'])}'>cores</a></td></tr>")
-        parts.append("</table>")
+        rows = [[esc(name), esc(v["criterion"]), f"{v['level']:g} ({esc(v['level_is'])})",
+                 f"{v['levels_used'][0]:.6g}, {v['levels_used'][-1]:.6g}", str(len(v["frames"])),
+                 f"<a href='{esc(v['table'])}'>frames</a>, <a href='{esc(v['core_table'])}'>cores</a>"]
+                for name, v in vortices.items()]
+        parts.append("<h2>Vortex entries</h2>" + _table(
+            ["entry", "criterion", "level", "level used (first, last frame)", "frames", "tables"], rows))
         for name, v in vortices.items():
             with open(out / v["table"], newline="") as fh:
-                rows = list(csv.DictReader(fh))
-            if rows:
+                table = list(csv.DictReader(fh))
+            if table:
                 cols = ("cores", "core_length", "volume", "peak", "max_strength")
-                png = _plot(plots / f"{name}.png", [float(r["time"]) for r in rows],
-                            {c: [float(r[c]) for r in rows] for c in cols}, f"{name}: per-frame figures")
-                parts.append(f"<figure><img src='{esc(png.relative_to(out).as_posix())}' alt='{esc(name)}'></figure>")
+                parts.append(_figure(out, name, [float(r["time"]) for r in table],
+                                     {c: [float(r[c]) for r in table] for c in cols}, f"{name}: per-frame figures"))
     renders = manifest.get("renders", {})
     if renders:
         parts.append("<h2>Renders</h2>")
