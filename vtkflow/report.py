@@ -55,9 +55,11 @@ def _plot(path: Path, times: list[float], series: dict[str, list[float]], title:
 
 
 def _vertex_counts(out: Path, frames: list[dict[str, Any]]) -> list[float]:
+    """Vertices per frame: from the manifest (written with each frame), else from the frame file."""
     from .output import read_vtp
 
-    return [float(read_vtp(out / f["file"]).GetNumberOfPoints()) for f in frames]
+    return [float(f["points"]) if "points" in f else float(read_vtp(out / f["file"]).GetNumberOfPoints())
+            for f in frames]
 
 
 def write_report(out: Path, manifest: dict[str, Any], recipe_text: str) -> Path:

@@ -270,7 +270,8 @@ def run_recipe(
                 frames[name].append(_write_vortex_frame(out, name, result))
             else:
                 path = write_vtp(result, frame_path(out, name, index))
-                frames[name].append({"index": index, "time": t, "file": str(path.relative_to(out))})
+                frames[name].append({"index": index, "time": t, "file": str(path.relative_to(out)),
+                                     "points": int(result.GetNumberOfPoints())})
             done += 1
             if progress is not None:
                 progress(name, done, total)
