@@ -45,8 +45,10 @@ def write_series(
     name: str = "U",
     stem: str = "snap",
     time_field: str | None = "time",
+    cell_data: dict | None = None,
 ) -> list[Path]:
-    """Sample ``flow(points, t)`` on ``mesh`` at each time and write one .vtu per time."""
+    """Sample ``flow(points, t)`` on ``mesh`` at each time and write one .vtu per time (with ``cell_data``
+    arrays added to every file)."""
     folder.mkdir(parents=True, exist_ok=True)
     where = mesh.points if association == "point" else mesh.cell_centers().points
     paths = []
@@ -55,6 +57,8 @@ def write_series(
         m.clear_data()
         u = np.asarray(flow(np.asarray(where, float), float(t)), dtype=np.float64)
         (m.point_data if association == "point" else m.cell_data)[name] = u
+        for key, values in (cell_data or {}).items():
+            m.cell_data[key] = values
         if time_field:
             arr = vtkDoubleArray()
             arr.SetName(time_field)

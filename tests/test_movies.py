@@ -246,3 +246,37 @@ def test_slice_needs_a_volume_entry(tmp_path):
     recipe.write_text(recipe.read_text().replace("    movie:", "    slice: {entry: smoke, origin: [0, 0, 0], normal: [0, 0, 1]}\n    movie:"))
     res = CliRunner().invoke(app, ["check", str(recipe)])
     assert res.exit_code == 2 and "renders.view.slice.entry: 'smoke' is not a vortex entry with volume: true" in res.output
+
+
+def test_boundary_region_named_by_the_input(tmp_path):
+    """A mesh that carries boundary triangles tagged by a cell array: particles are traced in its
+    tetrahedra only (the triangles are left out of the decomposition), and a render draws just the faces
+    whose 'region' value is asked for (counted against the faces written)."""
+    import imageio.v3 as iio
+    import pyvista as pv
+
+    vol = box_mesh((0, 0, 0), (2, 1, 1), (8, 4, 4))
+    skin = vol.extract_surface(algorithm="dataset_surface").triangulate()
+    centres = skin.cell_centers().points
+    inlet = np.isclose(centres[:, 0], 0.0)
+    tets = np.asarray(vol.cells_dict[10])
+    tris = np.asarray(skin.faces).reshape(-1, 4)[:, 1:]
+    # the same points: map the surface's points onto the volume's by position
+    index = {tuple(np.round(p, 9)): i for i, p in enumerate(np.asarray(vol.points))}
+    tris = np.vectorize(lambda j: index[tuple(np.round(skin.points[j], 9))])(tris)
+    mesh = pv.UnstructuredGrid({10: tets, 5: tris}, np.asarray(vol.points))
+    region = np.concatenate([np.zeros(len(tets), np.int32), np.where(inlet, 1, 2).astype(np.int32)])
+    write_series(mesh, oscillating(1.0, 0.2, 3.0), np.linspace(0.0, 0.6, 7), tmp_path / "case",
+                 cell_data={"region": region})
+    recipe = _case(tmp_path, formats="gif")
+    recipe.write_text(recipe.read_text().replace("    movie:", "    boundary: {array: region, values: [1]}\n"
+                                                 "    boundary_opacity: 1.0\n    movie:"))
+    manifest = run_recipe(load_recipe(recipe), warn=lambda m: None, workers=1)
+    out = Path(manifest["output"])
+    faces = pv.read(out / "view" / "boundary.vtp")
+    assert faces.n_cells == int(inlet.sum()) and np.allclose(faces.points[:, 0], 0.0)
+    assert manifest["entries"]["smoke"]["counts"]["released"] > 0
+    assert iio.imread(out / manifest["renders"]["view"]["frames"][0]["file"]).shape == (120, 160, 3)
+    recipe.write_text(recipe.read_text().replace("values: [1]", "values: [7]"))
+    res = CliRunner().invoke(app, ["run", str(recipe)])
+    assert res.exit_code == 2 and "no surface cell has region in [7] (renders.view.boundary)" in res.output

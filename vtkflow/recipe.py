@@ -332,6 +332,13 @@ class MovieSpec(Strict):
     fps: PositiveFloat = Field(10.0, description="frames per second")
 
 
+class BoundaryRegion(Strict):
+    """Surface cells of the input (boundary faces it carries), chosen by the values of one cell array."""
+
+    array: str = Field(description="an integer cell array of the input, e.g. a patch or region number")
+    values: list[int] = Field(min_length=1, description="the array values of the faces drawn")
+
+
 class LayerStyle(Strict):
     """How one entry is drawn in a render (default: lines, or the surface, coloured by color_by)."""
 
@@ -388,7 +395,10 @@ class RenderEntry(Strict):
     movie: Optional[MovieSpec] = Field(None, description="also write <render>.mp4 / .gif from the frames")
     styles: dict[str, LayerStyle] = Field(default_factory=dict, description="per entry of 'lines': how it is drawn")
     slice: Optional[SliceSpec] = Field(None, description="a plane cut through a vortex entry's volume files")
-    boundary: bool = Field(False, description="draw the mesh's boundary surface in light grey")
+    boundary: Union[bool, BoundaryRegion] = Field(
+        False, description="true: draw the mesh's boundary surface in light grey; {array, values}: only the surface"
+        " cells of the input whose cell array has one of these values (a boundary region the input names)"
+    )
     boundary_opacity: float = Field(0.25, gt=0.0, le=1.0, description="opacity of the boundary surface")
 
     @field_validator("colormap")
@@ -568,6 +578,6 @@ def json_schema() -> dict[str, Any]:
 
 _MODEL_NAMES = {"Recipe", "Data", "TimesSpec", "Release", "LineEntry", "RenderEntry", "Camera", "FrameEvery",
                 "VortexEntry", "Reference", "CoreLineSpec", "MovieSpec", "View", "LayerStyle",
-                "SliceSpec"} | {
+                "SliceSpec", "BoundaryRegion"} | {
     getattr(s.spec, "__name__", "") for s in SHAPES.values()
 }

@@ -19,7 +19,8 @@ import numpy as np
 from . import __version__
 from .errors import InputError, OutputError, RecipeError
 from .lines import LINE_KINDS, STATUS_NAMES, TIME_RTOL, ParticleTracer, StreamlineTracer, entry_window, release_instants
-from ._vtk import vtk_to_numpy
+from . import _vtk
+from ._vtk import numpy_to_vtk, vtk_to_numpy
 from .output import frame_path, write_csv, write_json, write_vtp, write_vtu
 from .particles import TimeField, time_slopes
 from .recipe import FrameEvery, LineEntry, LoadedRecipe
@@ -361,14 +362,49 @@ def render_recipe(
     return manifest
 
 
-def _boundary_surface(series: Series, out: Path) -> Path:
-    """Write the mesh's boundary surface as ``<output>/boundary.vtp``; its path."""
+def _boundary_surface(series: Series, out: Path, name: str, region: Any) -> Path:
+    """Write the surface a render draws as boundary: the mesh's outer surface (``region`` True), as
+    ``<output>/boundary.vtp``; or the input's surface cells whose cell array ``region.array`` takes one of
+    ``region.values``, as ``<output>/<render>/boundary.vtp``. Returns the path."""
     from vtkmodules.vtkFiltersGeometry import vtkGeometryFilter
 
     geometry = vtkGeometryFilter()
-    geometry.SetInputData(series.mesh.grid)
+    if region is True:
+        geometry.SetInputData(series.mesh.grid)
+        path = out / "boundary.vtp"
+    else:
+        from vtkmodules.vtkFiltersCore import vtkThreshold
+
+        from .series import read_file
+        from .tetmesh import SURFACE_TYPES
+
+        key = f"renders.{name}.boundary.array"
+        data = read_file(series.snapshots[0])
+        if region.array not in data.cell:
+            raise InputError(f"{series.snapshots[0].label}: no cell array {region.array!r} for {key}"
+                             f" (cell arrays: {', '.join(data.cell) or 'none'})")
+        values = np.asarray(data.cell[region.array]).reshape(len(series.mesh.cell_types), -1)[:, 0]
+        pick = np.flatnonzero(np.isin(values, region.values) & np.isin(series.mesh.cell_types, list(SURFACE_TYPES)))
+        if pick.size == 0:
+            raise InputError(f"{series.snapshots[0].label}: no surface cell has {region.array} in {region.values}"
+                             f" (renders.{name}.boundary)")
+        grid = _vtk.vtkUnstructuredGrid()
+        grid.ShallowCopy(series.mesh.grid)
+        keep = np.zeros(len(values), np.uint8)
+        keep[pick] = 1
+        flag = numpy_to_vtk(keep, deep=True)
+        flag.SetName("chosen")
+        grid.GetCellData().AddArray(flag)
+        threshold = vtkThreshold()  # the chosen faces, selected by a 0/1 cell array (no loop over cells)
+        threshold.SetInputData(grid)
+        threshold.SetInputArrayToProcess(0, 0, 0, 1, "chosen")  # 1: cell data
+        threshold.SetLowerThreshold(0.5)
+        threshold.SetUpperThreshold(1.5)
+        threshold.Update()
+        geometry.SetInputData(threshold.GetOutput())
+        path = out / name / "boundary.vtp"
     geometry.Update()
-    return write_vtp(geometry.GetOutput(), out / "boundary.vtp")
+    return write_vtp(geometry.GetOutput(), path)
 
 
 def value_range(files: Sequence[str], name: str) -> list[float]:
@@ -460,9 +496,13 @@ def _render_all(
                          if abs(f["time"] - frame["time"]) <= TIME_RTOL * max(1.0, abs(frame["time"])) and "volume" in f]
                 volume = str(out / match[0]["volume"]) if match else None
             frames.append((frame, layers, names, volume))
-        if spec.boundary and boundary_file is None:
-            boundary_file = str(_boundary_surface(series, out))
-        boundary = boundary_file if spec.boundary else None
+        boundary = None
+        if spec.boundary is True:
+            if boundary_file is None:
+                boundary_file = str(_boundary_surface(series, out, name, True))
+            boundary = boundary_file
+        elif spec.boundary:
+            boundary = str(_boundary_surface(series, out, name, spec.boundary))
         if spec.range == "auto":  # a first pass over every file the render draws
             kept = (known_ranges or {}).get(name)
             colored = [n for n in spec.lines if spec.styles.get(n) is None or spec.styles[n].color is None]

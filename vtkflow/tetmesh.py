@@ -8,6 +8,7 @@ tetrahedra", Proc. 8th International Meshing Roundtable).
 * tetrahedron: kept;
 * pyramid: two tetrahedra on the split base;
 * wedge (prism): three tetrahedra (the rule of the paper above, :func:`split_wedges`);
+* vertices, lines and surface cells (boundary faces some meshes carry): left out;
 * hexahedron, voxel: a point is added at the cell centre (value: the mean of the eight corners) and
   each of the 12 face triangles is joined to it, twelve tetrahedra.
 
@@ -27,6 +28,9 @@ from .errors import InputError
 __all__ = ["TetMesh", "decompose", "orient_and_order_numpy", "morton_order", "split_wedges", "face_neighbours", "BinGrid", "bin_grid", "grid_shape"]
 
 TETRA, VOXEL, HEXAHEDRON, WEDGE, PYRAMID = 10, 11, 12, 13, 14
+#: Cells below three dimensions (vertex, poly-vertex, line, polyline, triangle, strip, polygon, pixel, quad):
+#: not decomposed; a mesh may carry them as boundary regions.
+SURFACE_TYPES = frozenset({1, 2, 3, 4, 5, 6, 7, 8, 9})
 
 # Rotations/reflections of a VTK wedge that bring each of its six vertices to position 0.
 _WEDGE_PERMUTATIONS = np.array(
@@ -142,8 +146,11 @@ def decompose(points: np.ndarray, offsets: np.ndarray, connectivity: np.ndarray,
     cell_ids = np.arange(n_cells)
     supported = {TETRA: 4, PYRAMID: 5, WEDGE: 6, HEXAHEDRON: 8, VOXEL: 8}
     for kind in np.unique(types):
-        if int(kind) not in supported:
-            raise InputError(f"cell type {int(kind)} is not supported by the particle engine (tetra, pyramid, wedge, hexahedron, voxel)")
+        if int(kind) not in supported and int(kind) not in SURFACE_TYPES:
+            raise InputError(f"cell type {int(kind)} is not supported by the particle engine (tetra, pyramid, wedge,"
+                             " hexahedron, voxel; vertices, lines and surface cells are kept as boundary regions)")
+    if not np.isin(types, list(supported)).any():
+        raise InputError("the mesh has no volume cells (tetra, pyramid, wedge, hexahedron, voxel)")
     tets, parents = [], []
     hex_cells = []
     for kind, n in supported.items():
