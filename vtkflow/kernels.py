@@ -178,10 +178,12 @@ def _geometry(points, tets, geom):
 
 
 @njit(cache=True, parallel=True)
-def _face_keys(tets, lo, mid, hi):
-    """The sorted vertex triple of every face (face ``4 t + f`` is opposite vertex ``f`` of ``t``)."""
+def _face_keys(tets, lo, mid, hi, nbr):
+    """The sorted vertex triple of every face (face ``4 t + f`` is opposite vertex ``f`` of ``t``); ``nbr``
+    set to -1 (no neighbour yet) in the same parallel pass."""
     for t in prange(tets.shape[0]):
         for f in range(4):
+            nbr[4 * t + f] = -1
             a, b, c = tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4]
             if a > b:
                 a, b = b, a
@@ -229,12 +231,13 @@ def neighbours(tets: np.ndarray) -> np.ndarray:
     tets = np.ascontiguousarray(tets, dtype=np.int64)
     m = len(tets)
     n_points = int(tets.max()) + 1 if m else 0
-    lo, mid, hi = np.empty(4 * m, np.int64), np.empty(4 * m, np.int64), np.empty(4 * m, np.int64)
-    _face_keys(tets, lo, mid, hi)
+    # 32-bit work arrays where the numbers fit: half the memory to fill (and fault in) on 4 M faces
+    idx = np.int32 if max(4 * m, n_points) < 2**31 else np.int64
+    lo, mid, hi, nbr = (np.empty(4 * m, idx) for _ in range(4))
+    _face_keys(tets, lo, mid, hi, nbr)
     start = np.empty(n_points + 1, np.int64)
-    faces = np.empty(4 * m, np.int64)
+    faces = np.empty(4 * m, idx)
     _bucket_faces(lo, n_points, start, faces)
-    nbr = np.full(4 * m, -1, np.int64)
     _pair_faces(faces, start, mid, hi, nbr)
     return nbr.reshape(m, 4)
 
@@ -389,7 +392,7 @@ class Locator:
             raise InputError(f"{len(tm.tets)} tetrahedra on {len(tm.points)} points: more than the engine's 32-bit "
                              "topology holds (2**31 - 1)")
         # 32-bit topology for the kernels: half the memory of 64-bit indices, on the walk's every step
-        self.nbr = neighbours(tm.tets).astype(np.int32)
+        self.nbr = neighbours(tm.tets).astype(np.int32, copy=False)
         self.bins: BinGrid = build_bins(tm.points, tm.tets)
         self.conn = tm.tets.astype(np.int32)
 

@@ -64,10 +64,9 @@ class Mesh:
         self.points = vtk_to_numpy(topo.GetPoints().GetData()).astype(np.float64, copy=False)
         self.bounds = np.array(topo.GetBounds(), dtype=np.float64).reshape(3, 2)
         cells = topo.GetCells()
-        self.offsets = vtk_to_numpy(cells.GetOffsetsArray()).astype(np.int64)
-        self.connectivity = vtk_to_numpy(cells.GetConnectivityArray()).astype(np.int64)
+        self.offsets = vtk_to_numpy(cells.GetOffsetsArray()).astype(np.int64, copy=False)
+        self.connectivity = vtk_to_numpy(cells.GetConnectivityArray()).astype(np.int64, copy=False)
         self.cell_types = cell_types(topo)
-        self._cell_of_entry = np.repeat(np.arange(self.n_cells), np.diff(self.offsets))
         self.cell_size, self.point_size = self._cell_sizes()
         self._to_point: sp.csr_matrix | None = None
         self.tetmesh = decompose(self.points, self.offsets, self.connectivity, self.cell_types)
@@ -115,7 +114,8 @@ class Mesh:
             counts = np.bincount(self.connectivity, minlength=self.n_points).astype(np.float64)
             weights = ones / np.maximum(counts, 1.0)[self.connectivity]
             self._to_point = sp.csr_matrix(
-                (weights, (self.connectivity, self._cell_of_entry)), shape=(self.n_points, self.n_cells)
+                (weights, (self.connectivity, np.repeat(np.arange(self.n_cells), np.diff(self.offsets)))),
+                shape=(self.n_points, self.n_cells),
             )
         return np.asarray(self._to_point @ np.asarray(values, dtype=np.float64))
 
