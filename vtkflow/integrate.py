@@ -322,15 +322,18 @@ def _advance_many(X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, fiel
 
 @njit(cache=True, parallel=True)
 def _compact(rec_x, rec_t, rec_v, counts, first, rows, x, t, v):
-    """Copy the valid records of each particle (``counts[i]`` from row ``i``) to flat arrays from ``first[i]``."""
-    for i in prange(counts.shape[0]):
-        for k in range(counts[i]):
-            j = first[i] + k
-            rows[j] = i
-            t[j] = rec_t[k, i]
-            for c in range(3):
-                x[j, c] = rec_x[k, i, c]
-                v[j, c] = rec_v[k, i, c]
+    """Copy the valid records (``counts[i]`` of particle ``i``) to flat arrays, step by step: the records of
+    step ``k`` of every particle that took it, from ``first[k]`` (contiguous reads of the step-major buffers)."""
+    for k in prange(first.shape[0] - 1):
+        j = first[k]
+        for i in range(counts.shape[0]):
+            if counts[i] > k:
+                rows[j] = i
+                t[j] = rec_t[k, i]
+                for c in range(3):
+                    x[j, c] = rec_x[k, i, c]
+                    v[j, c] = rec_v[k, i, c]
+                j += 1
 
 
 class RecordBuffers:
@@ -359,8 +362,8 @@ def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_step
 
     ``dt`` holds each particle's suggested next step for the adaptive scheme (updated in place).
     With ``buffers`` (a :class:`RecordBuffers` of width ``max_steps``) every accepted step is recorded;
-    returns ``(rows, x, t, v)``: the records, flat, grouped by particle (``rows`` indexes the given
-    arrays) and in time order within a particle. Without, returns ``None``.
+    returns ``(rows, x, t, v)``: the records, flat, step by step (``rows`` indexes the given arrays), so in
+    time order within each particle. Without, returns ``None``.
     """
     n = len(t)
     rec = _NO_RECORDS if buffers is None else buffers.take(n)
@@ -369,8 +372,11 @@ def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_step
                   params, TABLEAUS[integrator], *rec, counts)
     if buffers is None:
         return None
-    first = np.zeros(n, np.int64)
-    np.cumsum(counts[:-1], out=first[1:])
+    # records per step: particles with more than k steps, for k < max_steps
+    taken = np.bincount(counts, minlength=int(max_steps) + 1)[: int(max_steps) + 1]
+    per_step = n - np.cumsum(taken)[:-1]
+    first = np.zeros(len(per_step) + 1, np.int64)
+    np.cumsum(per_step, out=first[1:])
     total = int(counts.sum())
     out = np.empty(total, np.int64), np.empty((total, 3)), np.empty(total), np.empty((total, 3))
     _compact(*rec, counts, first, out[0], out[1], out[2], out[3])

@@ -19,7 +19,7 @@ from numba import njit, prange
 from .errors import InputError
 from .tetmesh import PER_BIN, BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "group_order", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "group_order", "take_rows", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -303,6 +303,24 @@ def _group_order(keys, reverse, start, order):
         pos = start[k + 1] - 1 - seen[k] if reverse[k] else start[k] + seen[k]
         seen[k] += 1
         order[pos] = i
+
+
+@njit(cache=True, parallel=True)
+def _take_rows(src, order, out):
+    for j in prange(order.shape[0]):
+        for c in range(src.shape[1]):
+            out[j, c] = src[order[j], c]
+
+
+def take_rows(order: np.ndarray, *arrays: np.ndarray) -> list[np.ndarray]:
+    """``[a[order] for a in arrays]`` (1-D or 2-D arrays), gathered in parallel."""
+    out = []
+    for a in arrays:
+        a2 = np.ascontiguousarray(a).reshape(len(a), -1)
+        res = np.empty((len(order), a2.shape[1]), a2.dtype)
+        _take_rows(a2, order, res)
+        out.append(res.reshape((len(order),) + a.shape[1:]))
+    return out
 
 
 def group_order(keys: np.ndarray, n_keys: int, reverse: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:

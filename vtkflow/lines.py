@@ -21,7 +21,7 @@ from typing import Any, Callable, NamedTuple, Optional
 import numpy as np
 
 from .errors import RecipeError
-from .kernels import group_order
+from .kernels import group_order, take_rows
 from .particles import State, Status, TimeField, advance, place, trace_streamlines
 
 __all__ = ["LINE_KINDS", "LineKind", "ParticleTracer", "StreamlineTracer", "release_instants", "STATUS_NAMES"]
@@ -186,9 +186,9 @@ class ParticleTracer:
         h.consolidate()
         # vertices were recorded in time order per particle: group them by particle, keeping that order
         order, lengths = group_order(h.ids, len(self.release_time))
-        ids = h.ids[order]
+        ids, x, t, v = take_rows(order, h.ids, h.x, h.t, h.v)
         lengths = lengths[lengths > 0]
-        return self._polydata(ids, h.x[order], h.t[order], h.v[order], lengths, time)
+        return self._polydata(ids, x, t, v, lengths, time)
 
     def _polydata(self, ids: np.ndarray, x: np.ndarray, t: np.ndarray, v: np.ndarray, lengths: np.ndarray, time: float) -> Any:
         from .output import polylines

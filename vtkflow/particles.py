@@ -23,7 +23,7 @@ from typing import Callable, NamedTuple, Optional
 
 import numpy as np
 
-from .kernels import group_order
+from .kernels import group_order, take_rows
 from .mesh import Mesh
 
 __all__ = [
@@ -235,7 +235,8 @@ class State:
         )
 
 
-#: ``record(idx, x, t, v)`` after accepted steps; the arrays are the recorder's to keep (never reused).
+#: ``record(idx, x, t, v)`` after accepted steps: each particle's records in time order (interleaved with other
+#: particles'); the arrays are the recorder's to keep (never reused).
 Recorder = Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], None]
 
 
@@ -500,7 +501,7 @@ def trace_streamlines(
     seed = idx % L if L else idx
     key = seed * n_dir + idx // max(L, 1)
     order, _ = group_order(key, n_dir * L, np.tile(np.asarray(signs) < 0, L))
-    idx, x, arc, seed, vel = idx[order], x[order], arc[order], seed[order], vel[order]
+    idx, x, arc, seed, vel = take_rows(order, idx, x, arc, seed, vel)
     return StreamlineSet(
         points=x,
         velocity=vel,
