@@ -11,7 +11,6 @@ from typing import Callable, Sequence
 
 import numpy as np
 import pyvista as pv
-from vtkmodules.util.numpy_support import numpy_to_vtk
 from vtkmodules.vtkCommonCore import vtkDoubleArray
 from vtkmodules.vtkIOXML import vtkXMLUnstructuredGridWriter
 

@@ -12,7 +12,6 @@ warnings, and the state of the output folder after a failed run.
 
 from __future__ import annotations
 
-import copy
 import json
 import os
 import re
@@ -27,7 +26,7 @@ import pytest
 import yaml
 from typer.testing import CliRunner
 from vtkmodules.util.numpy_support import vtk_to_numpy
-from vtkmodules.vtkCommonCore import vtkCommand, vtkDoubleArray
+from vtkmodules.vtkCommonCore import vtkCommand
 from vtkmodules.vtkIOXML import vtkXMLPolyDataReader, vtkXMLUnstructuredGridReader, vtkXMLUnstructuredGridWriter
 
 from flows import box_mesh, oscillating, oscillating_position, with_, write_series

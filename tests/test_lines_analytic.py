@@ -20,7 +20,6 @@ from flows import (
     lamb_oseen_omega,
     last_frame,
     oscillating,
-    oscillating_position,
     polylines_of,
     run_case,
 )

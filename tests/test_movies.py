@@ -195,6 +195,7 @@ def test_boundary_surface_is_drawn(tmp_path):
     surface = pv.read(tmp_path / "b" / "boundary.vtp")
     assert surface.n_cells == 2 * (8 * 4 + 8 * 4 + 4 * 4) * 2  # the box's outer faces, two triangles per quad
     f = plain["renders"]["view"]["frames"][0]["file"]
+    assert walls["renders"]["view"]["frames"][0]["file"] == f
     assert not np.array_equal(iio.imread(tmp_path / "a" / f), iio.imread(tmp_path / "b" / f))
 
 

@@ -22,7 +22,7 @@ from vtkmodules.vtkIOXML import vtkXMLPolyDataReader
 from flows import box_mesh, oscillating, with_, write_series
 from vtkflow.errors import RecipeError
 from vtkflow.lines import LINE_KINDS
-from vtkflow.recipe import LineEntry, Recipe, TimesSpec, json_schema, load_recipe, parse_recipe
+from vtkflow.recipe import Recipe, TimesSpec, json_schema, load_recipe, parse_recipe
 from vtkflow.releases import (
     SHAPES,
     BoxShape,

@@ -5,7 +5,7 @@ from __future__ import annotations
 import meshio
 import numpy as np
 import pytest
-from vtkmodules.util.numpy_support import numpy_to_vtk, vtk_to_numpy
+from vtkmodules.util.numpy_support import vtk_to_numpy
 from vtkmodules.vtkFiltersCore import vtkCellDataToPointData
 
 from flows import abc, box_mesh, helix, write_series

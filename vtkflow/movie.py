@@ -18,7 +18,7 @@ MOVIE_FORMATS = ("mp4", "gif")
 def encoder_problem(formats: Sequence[str]) -> Optional[str]:
     """Why these formats cannot be written here (one line), or None."""
     try:
-        import imageio.v3  # noqa: F401
+        import imageio.v3  # noqa: F401  (is it installed?)
     except ImportError:
         return "the Python package imageio is missing (pip install imageio)"
     if "mp4" in formats:

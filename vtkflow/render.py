@@ -69,16 +69,12 @@ __all__ = [
     "release_window",
     "format_time",
     "scene_width",
-    "AUTO_VIEW_DIRECTION",
     "TABLE_SIZE",
     "CONTEXT_COLOR",
 ]
 
 TABLE_SIZE = 256
 """Colours in the lookup table built from the render's colour map."""
-AUTO_VIEW_DIRECTION = VIEW_DIRECTIONS["oblique"]
-"""Without a camera or view: the eye sits along this direction from the box centre (downstream, on the -y
-side, above; z up), so a flow along +x runs from left to right across the image."""
 AUTO_VIEW_ANGLE = 30.0
 """Without a camera: the vertical view angle in degrees."""
 AUTO_FILL_WIDTH = 0.9

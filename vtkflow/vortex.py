@@ -175,29 +175,28 @@ class VortexTracer:
 
     # --------------------------------------------------------------------------------------- parts
     def _surface(self, f: FrameFields, values: np.ndarray, level: float, time: float) -> Any:
-        g = _vtk.vtkUnstructuredGrid()
-        g.ShallowCopy(self.shared.tetgrid)
-        pd = g.GetPointData()
-        arrays = {self.entry.criterion: values, "speed": f.values["speed"],
-                  "vorticity_magnitude": f.values["vorticity_magnitude"], **f.extras}
-        for name, a in arrays.items():
-            arr = numpy_to_vtk(np.ascontiguousarray(a), deep=True)
-            arr.SetName(name)
-            pd.AddArray(arr)
-        pd.SetActiveScalars(self.entry.criterion)
-        from vtkmodules.vtkFiltersCore import vtkContour3DLinearGrid  # a large module: loaded when first needed
+        surface = _vtk.vtkPolyData()  # no level (a frame without finite values): an empty surface
+        if np.isfinite(level):
+            g = _vtk.vtkUnstructuredGrid()
+            g.ShallowCopy(self.shared.tetgrid)
+            pd = g.GetPointData()
+            arrays = {self.entry.criterion: values, "speed": f.values["speed"],
+                      "vorticity_magnitude": f.values["vorticity_magnitude"], **f.extras}
+            for name, a in arrays.items():
+                arr = numpy_to_vtk(np.ascontiguousarray(a), deep=True)
+                arr.SetName(name)
+                pd.AddArray(arr)
+            pd.SetActiveScalars(self.entry.criterion)
+            from vtkmodules.vtkFiltersCore import vtkContour3DLinearGrid  # a large module: loaded when first needed
 
-        contour = vtkContour3DLinearGrid()
-        contour.SetInputData(g)
-        contour.SetInputArrayToProcess(0, 0, 0, 0, self.entry.criterion)
-        contour.SetValue(0, level if np.isfinite(level) else 0.0)
-        contour.SetInterpolateAttributes(True)
-        contour.SetComputeScalars(True)
-        contour.Update()
-        surface = _vtk.vtkPolyData()
-        surface.ShallowCopy(contour.GetOutput())
-        if not np.isfinite(level):
-            surface = _vtk.vtkPolyData()
+            contour = vtkContour3DLinearGrid()
+            contour.SetInputData(g)
+            contour.SetInputArrayToProcess(0, 0, 0, 0, self.entry.criterion)
+            contour.SetValue(0, level)
+            contour.SetInterpolateAttributes(True)
+            contour.SetComputeScalars(True)
+            contour.Update()
+            surface.ShallowCopy(contour.GetOutput())
         if self.entry.min_area is not None and surface.GetNumberOfCells():
             surface = _drop_small_pieces(surface, float(self.entry.min_area))
         for name, value in (("time", time), ("level", level)):
