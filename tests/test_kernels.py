@@ -315,3 +315,21 @@ def test_take_rows_is_fancy_indexing():
     a, b, c = rng.normal(size=(1000, 3)), rng.integers(0, 50, 1000), rng.normal(size=1000)
     for got, ref in zip(take_rows(order, a, b, c), (a[order], b[order], c[order])):
         assert got.dtype == ref.dtype and np.array_equal(got, ref)
+
+
+def test_put_rows_is_fancy_assignment():
+    """The parallel scatter equals NumPy's ``out[dest] = src`` (its twin), pieces put into one output."""
+    from vtkflow.kernels import put_rows
+
+    rng = np.random.default_rng(10)
+    dest = rng.permutation(1000)
+    a, c = rng.normal(size=(1000, 3)), rng.normal(size=1000)
+    got_a, got_c = np.full((1000, 3), np.nan), np.full(1000, np.nan)
+    for piece in (slice(0, 400), slice(400, 1000)):  # in two pieces, as the streamline assembly does
+        put_rows(dest[piece], a[piece], got_a)
+        put_rows(dest[piece], c[piece], got_c)
+    ref_a, ref_c = np.empty_like(a), np.empty_like(c)
+    ref_a[dest], ref_c[dest] = a, c
+    assert np.array_equal(got_a, ref_a) and np.array_equal(got_c, ref_c)
+    with pytest.raises(ValueError, match="C-contiguous"):
+        put_rows(dest, c, np.empty((1000, 2))[:, 0])

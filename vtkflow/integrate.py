@@ -24,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from .kernels import _bary, _locate
+from .kernels import _bary, _locate, _prefetch_exit
 from .particles import Status
 
 __all__ = ["advance_particles", "RecordBuffers", "TABLEAUS"]
@@ -37,21 +37,19 @@ MAX_RAY = 100_000
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _sample(x, t, hint, mesh, field, sign, v_out, bary, need_h=True):
-    """Velocity at (x, t) into ``v_out``; returns (tetrahedron or -1, local cell size, stop code, speed)
-    where speed is that of the velocity itself (in frozen mode ``v_out`` is its unit tangent). The cell
-    size is interpolated only when ``need_h`` (0.0 otherwise), and a snapshot of zero weight is not read."""
+def _sample(x0, x1, x2, t, hint, mesh, field, sign, need_h=True):
+    """Velocity at ``((x0, x1, x2), t)``: ``(tetrahedron or -1, local cell size, stop code, speed, u0, u1, u2)``,
+    the speed that of the velocity itself (in frozen mode ``u`` is its unit tangent). The cell size is
+    interpolated only when ``need_h`` (0.0 otherwise), and a snapshot of zero weight is not read."""
     geom, nbr, conn, origin, spacing, dims, start, items = mesh
     values, t0, t1, frozen, time, floor, cubic = field
-    cell = _locate(x, hint, geom, nbr, origin, spacing, dims, start, items, bary)
+    cell, b0, b1, b2, b3 = _locate(x0, x1, x2, hint, geom, nbr, origin, spacing, dims, start, items)
     if cell < 0:
-        v_out[0] = v_out[1] = v_out[2] = 0.0
-        return -1, 0.0, OUTSIDE, 0.0
+        return -1, 0.0, OUTSIDE, 0.0, 0.0, 0.0, 0.0
     tt = time if frozen else t
     a = 0.0
     if t1 != t0:
         a = min(max((tt - t0) / (t1 - t0), 0.0), 1.0)
-    b0, b1, b2, b3 = bary[0], bary[1], bary[2], bary[3]
     n0, n1, n2, n3 = conn[cell, 0], conn[cell, 1], conn[cell, 2], conn[cell, 3]
     # weights of the columns: u(t0) (0..2), u(t1) (3..5) and, cubic, the time slopes at t0 (6..8), t1 (9..11)
     wa, wb, wc, wd = 1.0 - a, a, 0.0, 0.0
@@ -76,42 +74,37 @@ def _sample(x, t, hint, mesh, field, sign, v_out, bary, need_h=True):
         hc = values.shape[1] - 1  # the cell size is the last column
         h = b0 * values[n0, hc] + b1 * values[n1, hc] + b2 * values[n2, hc] + b3 * values[n3, hc]
     if not (np.isfinite(w0) and np.isfinite(w1) and np.isfinite(w2)):
-        v_out[0] = v_out[1] = v_out[2] = 0.0
-        return cell, h, NAN, 0.0
+        return cell, h, NAN, 0.0, 0.0, 0.0, 0.0
     speed = np.sqrt(w0 * w0 + w1 * w1 + w2 * w2)
     if frozen:
         if not speed > floor:
-            v_out[0] = v_out[1] = v_out[2] = 0.0
-            return cell, h, STALLED, 0.0
+            return cell, h, STALLED, 0.0, 0.0, 0.0, 0.0
         f = sign / speed
         w0 *= f
         w1 *= f
         w2 *= f
-    v_out[0] = w0
-    v_out[1] = w1
-    v_out[2] = w2
-    return cell, h, ACTIVE, speed
+    # the next tetrahedron along the path, into cache while this one's sample is used (on meshes larger than
+    # the caches, the walk's loads are what the engine waits for)
+    _prefetch_exit(cell, b0, b1, b2, b3, w0, w1, w2, geom, nbr, conn)
+    return cell, h, ACTIVE, speed, w0, w1, w2
 
 
 @njit(cache=True, nogil=True)
-def _ray_exit(x, d, cell, mesh, bary):
+def _ray_exit(x0, x1, x2, d0, d1, d2, cell, geom, nbr):
     """Distance along the unit direction ``d`` from ``x`` (in tetrahedron ``cell``) to the boundary, by
     traversing tetrahedra along the ray; -1.0 if no boundary face is met within MAX_RAY tetrahedra."""
-    geom, nbr, conn, origin, spacing, dims, start, items = mesh
     s_done = 0.0
     t = cell
-    r = np.empty(4)
     for _ in range(MAX_RAY):
-        _bary(x, t, geom, bary)
+        bary = _bary(x0, x1, x2, t, geom)
         # rate of change of each barycentric coordinate along d
-        r[1] = geom[t, 3] * d[0] + geom[t, 4] * d[1] + geom[t, 5] * d[2]
-        r[2] = geom[t, 6] * d[0] + geom[t, 7] * d[1] + geom[t, 8] * d[2]
-        r[3] = geom[t, 9] * d[0] + geom[t, 10] * d[1] + geom[t, 11] * d[2]
-        r[0] = -(r[1] + r[2] + r[3])
+        r1 = geom[t, 3] * d0 + geom[t, 4] * d1 + geom[t, 5] * d2
+        r2 = geom[t, 6] * d0 + geom[t, 7] * d1 + geom[t, 8] * d2
+        r3 = geom[t, 9] * d0 + geom[t, 10] * d1 + geom[t, 11] * d2
         best, f = np.inf, -1
-        for k in range(4):
-            if r[k] < 0.0:
-                s = -max(bary[k], 0.0) / r[k]
+        for k, rk in enumerate((-(r1 + r2 + r3), r1, r2, r3)):
+            if rk < 0.0:
+                s = -max(bary[k], 0.0) / rk
                 if s < best:
                     best, f = s, k
         if f < 0:
@@ -122,7 +115,7 @@ def _ray_exit(x, d, cell, mesh, bary):
             return s_done
         # step just past the face into the neighbour, measured from the original x
         t = nxt
-        x = x + best * d
+        x0, x1, x2 = x0 + best * d0, x1 + best * d1, x2 + best * d2
     return -1.0
 
 
@@ -155,34 +148,38 @@ TABLEAUS = {"rk4": (RK4_C, RK4_A, RK4_B, RK4_E, False), "dopri5": (DP_C, DP_A, D
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _record(i, n, x, t, v, scale, rec_x, rec_t, rec_v):
-    for c in range(3):
-        rec_x[n, i, c] = x[c]
-        rec_v[n, i, c] = v[c] * scale
+def _record(i, n, x0, x1, x2, t, v0, v1, v2, rec_x, rec_t, rec_v):
+    """Record particle ``i``'s ``n``-th step."""
+    rec_x[n, i, 0], rec_x[n, i, 1], rec_x[n, i, 2] = x0, x1, x2
+    rec_v[n, i, 0], rec_v[n, i, 1], rec_v[n, i, 2] = v0, v1, v2
     rec_t[n, i] = t
 
 
-@njit(cache=True, nogil=True)
-def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t, rec_v):
+#: Particles per parallel work item (one set of stage work arrays each).
+BLOCK = 64
+
+
+@njit(cache=True, nogil=True, _nrt=False)
+def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t,
+                 rec_v, k, cells, codes):
+    """Advance particle ``i`` by up to ``max_steps`` accepted steps; returns the number recorded.
+
+    Compiled without reference counting (``_nrt=False``: no arrays are made here, ``k``, ``cells`` and
+    ``codes`` are the stage work arrays): in a parallel loop, every reference to an array that all threads
+    share would cost an atomic update of its count, a full memory barrier on x86. The hot helpers it
+    inlines take and return scalars for the same reason."""
     min_step, max_growth, tol, rel_tol = params
     cc, aa, bb, ee, adaptive = scheme
+    geom, nbr, conn, origin, spacing, dims, first, items = mesh
     ns = bb.shape[0]
-    x = X[i].copy()
+    x0, x1, x2 = X[i, 0], X[i, 1], X[i, 2]
+    v0, v1, v2 = V[i, 0], V[i, 1], V[i, 2]
     t = T[i]
-    v = V[i].copy()
     h = H[i]
     cell = C[i]
     n = 0
-    k = np.empty((ns, 3))
-    kn = np.empty(3)
-    y = np.empty(3)
-    xn = np.empty(3)
-    bary = np.empty(4)
-    cells = np.empty(ns, np.int64)
-    codes = np.empty(ns, np.int64)
     if cell < 0:  # no hint yet (just released): locate through the bins
-        geom, nbr, conn, origin, spacing, dims, start, items = mesh
-        cell = _locate(x, -1, geom, nbr, origin, spacing, dims, start, items, bary)
+        cell = _locate(x0, x1, x2, -1, geom, nbr, origin, spacing, dims, first, items)[0]
         if cell < 0:
             S[i] = EXITED
             C[i] = cell
@@ -193,46 +190,48 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
     frozen = field[3]
     scale = 1.0
     if frozen:
-        _, _, _, spd = _sample(x, t, cell, mesh, field, sign, kn, bary)
-        scale = sign * spd
+        scale = sign * _sample(x0, x1, x2, t, cell, mesh, field, sign)[3]
     guard = 0
     while n < max_steps and S[i] == ACTIVE and t < t_end:
         guard += 1
         if guard > 64 * max_steps + 1000:
             break  # no progress: leave it to the caller's guard
-        speed = np.sqrt(v[0] ** 2 + v[1] ** 2 + v[2] ** 2)
+        speed = np.sqrt(v0 * v0 + v1 * v1 + v2 * v2)
         dt = step * h / speed if speed > 0.0 else np.inf
         dt = min(dt, cap)
         last = dt >= t_end - t
         if last:
             dt = t_end - t
         # stages
-        k[0] = v
+        k[0, 0], k[0, 1], k[0, 2] = v0, v1, v2
         cells[0] = cell
         codes[0] = ACTIVE
         n_in = 1
         for j in range(1, ns):
-            for c in range(3):
-                acc = 0.0
-                for m in range(j):
-                    acc += aa[j, m] * k[m, c]
-                y[c] = x[c] + dt * acc
-            cj, _, sj, _ = _sample(y, t + cc[j] * dt, cells[j - 1], mesh, field, sign, k[j], bary, False)
+            a0 = a1 = a2 = 0.0
+            for m in range(j):
+                a0 += aa[j, m] * k[m, 0]
+                a1 += aa[j, m] * k[m, 1]
+                a2 += aa[j, m] * k[m, 2]
+            cj, _, sj, _, k[j, 0], k[j, 1], k[j, 2] = _sample(x0 + dt * a0, x1 + dt * a1, x2 + dt * a2, t + cc[j] * dt,
+                                                              cells[j - 1], mesh, field, sign, False)
             cells[j] = cj
             codes[j] = sj
             if cj < 0:
                 break
             n_in += 1
         inside = n_in == ns
-        cn, hn, sn, spn = -1, 0.0, OUTSIDE, 0.0
+        cn, hn, sn, spn, u0, u1, u2 = -1, 0.0, OUTSIDE, 0.0, 0.0, 0.0, 0.0
         tn = t_end if last else t + dt
+        y0, y1, y2 = x0, x1, x2
         if inside:
-            for c in range(3):
-                acc = 0.0
-                for m in range(ns):
-                    acc += bb[m] * k[m, c]
-                xn[c] = x[c] + dt * acc
-            cn, hn, sn, spn = _sample(xn, tn, cells[ns - 1], mesh, field, sign, kn, bary)
+            a0 = a1 = a2 = 0.0
+            for m in range(ns):
+                a0 += bb[m] * k[m, 0]
+                a1 += bb[m] * k[m, 1]
+                a2 += bb[m] * k[m, 2]
+            y0, y1, y2 = x0 + dt * a0, x1 + dt * a1, x2 + dt * a2
+            cn, hn, sn, spn, u0, u1, u2 = _sample(y0, y1, y2, tn, cells[ns - 1], mesh, field, sign)
             inside = cn >= 0
         vmax2 = 0.0
         for m in range(n_in):
@@ -241,24 +240,25 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
         if not inside:
             if dt * vmax <= min_step * h:
                 # to the boundary along the mean velocity of the stages that stayed inside
-                mean = np.zeros(3)
-                wsum = 0.0
+                m0 = m1 = m2 = wsum = 0.0
                 for m in range(n_in):
                     w = abs(bb[m]) if bb[m] != 0.0 else 0.0
                     if m == 0:
                         w = max(w, 1e-300)
-                    mean += w * k[m]
+                    m0 += w * k[m, 0]
+                    m1 += w * k[m, 1]
+                    m2 += w * k[m, 2]
                     wsum += w
-                mean /= wsum
-                ms = np.sqrt(mean[0] ** 2 + mean[1] ** 2 + mean[2] ** 2)
+                m0, m1, m2 = m0 / wsum, m1 / wsum, m2 / wsum
+                ms = np.sqrt(m0 * m0 + m1 * m1 + m2 * m2)
                 if ms > 0.0:
-                    d = mean / ms
-                    dist = _ray_exit(x, d, cell, mesh, bary)
+                    d0, d1, d2 = m0 / ms, m1 / ms, m2 / ms
+                    dist = _ray_exit(x0, x1, x2, d0, d1, d2, cell, geom, nbr)
                     if dist > 0.0:
-                        x = x + dist * d
+                        x0, x1, x2 = x0 + dist * d0, x1 + dist * d1, x2 + dist * d2
                         t = min(t + dist / ms, t_end)
                         if recording:
-                            _record(i, n, x, t, v, scale, rec_x, rec_t, rec_v)
+                            _record(i, n, x0, x1, x2, t, v0 * scale, v1 * scale, v2 * scale, rec_x, rec_t, rec_v)
                         n += 1
                 S[i] = EXITED
                 break
@@ -276,8 +276,8 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
         if adaptive:
             # error estimate in length units against tol (absolute) or rel_tol * h (relative to the cell)
             err2 = 0.0
-            for c in range(3):
-                acc = ee[ns] * kn[c]
+            for c, uc in enumerate((u0, u1, u2)):
+                acc = ee[ns] * uc
                 for m in range(ns):
                     acc += ee[m] * k[m, c]
                 err2 += (dt * acc) ** 2
@@ -290,21 +290,21 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
             cap = dt * factor
         else:
             cap = np.inf
-        x[:] = xn
+        x0, x1, x2 = y0, y1, y2
+        v0, v1, v2 = u0, u1, u2
         t = tn
-        v[:] = kn
         h = hn
         cell = cn
         if frozen:
             scale = sign * spn
         if recording:
-            _record(i, n, x, t, v, scale, rec_x, rec_t, rec_v)
+            _record(i, n, x0, x1, x2, t, v0 * scale, v1 * scale, v2 * scale, rec_x, rec_t, rec_v)
         n += 1
         if sn > 0:
             S[i] = sn
-    X[i] = x
+    X[i, 0], X[i, 1], X[i, 2] = x0, x1, x2
+    V[i, 0], V[i, 1], V[i, 2] = v0, v1, v2
     T[i] = t
-    V[i] = v
     H[i] = h
     C[i] = cell
     if adaptive:
@@ -314,10 +314,13 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
 
 @njit(cache=True, parallel=True)
 def _advance_many(X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t, rec_v, counts):
-    for j in prange(X.shape[0]):
-        counts[j] = _advance_one(
-            j, X, T, V, H, C, S, D, signs[j], t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t, rec_v
-        )
+    ns = scheme[2].shape[0]
+    blocks = (X.shape[0] + BLOCK - 1) // BLOCK
+    for b in prange(blocks):
+        k, cells, codes = np.empty((ns, 3)), np.empty(ns, np.int64), np.empty(ns, np.int64)
+        for i in range(b * BLOCK, min((b + 1) * BLOCK, X.shape[0])):
+            counts[i] = _advance_one(i, X, T, V, H, C, S, D, signs[i], t_end, step, max_steps, mesh, field, params,
+                                     scheme, rec_x, rec_t, rec_v, k, cells, codes)
 
 
 @njit(cache=True, parallel=True)

@@ -14,12 +14,15 @@ boundary face. No VTK, no I/O.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange
+from llvmlite import ir
+from numba import njit, prange, types
+from numba.core import cgutils
+from numba.extending import intrinsic
 
 from .errors import InputError
 from .tetmesh import PER_BIN, BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "group_order", "take_rows", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "group_order", "take_rows", "put_rows", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -29,82 +32,142 @@ MAX_WALK = 256
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _bary(x, t, geom, out):
-    """Barycentric coordinates of ``x`` in tetrahedron ``t`` into ``out`` (4,); returns the smallest.
+def _bary(x0, x1, x2, t, geom):
+    """Barycentric coordinates ``(b0, b1, b2, b3)`` of the point ``(x0, x1, x2)`` in tetrahedron ``t``.
 
     ``geom[t]`` holds the tetrahedron's first vertex (0:3) and its inverse edge matrix, row by row (3:12):
-    one contiguous 96-byte record, so that a tetrahedron costs the walk one or two cache lines."""
-    d0 = x[0] - geom[t, 0]
-    d1 = x[1] - geom[t, 1]
-    d2 = x[2] - geom[t, 2]
+    one contiguous 96-byte record, so that a tetrahedron costs the walk one or two cache lines. The hot
+    helpers take and return scalars, never array views or scratch arrays: inlined into a parallel loop,
+    a view costs two atomic reference-count updates on memory that the threads share."""
+    d0 = x0 - geom[t, 0]
+    d1 = x1 - geom[t, 1]
+    d2 = x2 - geom[t, 2]
     l1 = geom[t, 3] * d0 + geom[t, 4] * d1 + geom[t, 5] * d2
     l2 = geom[t, 6] * d0 + geom[t, 7] * d1 + geom[t, 8] * d2
     l3 = geom[t, 9] * d0 + geom[t, 10] * d1 + geom[t, 11] * d2
-    out[0] = 1.0 - l1 - l2 - l3
-    out[1] = l1
-    out[2] = l2
-    out[3] = l3
-    return min(min(out[0], out[1]), min(out[2], out[3]))
+    return 1.0 - l1 - l2 - l3, l1, l2, l3
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _walk(x, start, geom, nbr, bary):
-    """Walk from ``start`` toward ``x``: the containing tetrahedron, or -1 at a boundary face, -2 if lost."""
+def _lowest(b0, b1, b2, b3):
+    """Index and value of the smallest of four numbers (the first one on ties)."""
+    f, v = 0, b0
+    if b1 < v:
+        f, v = 1, b1
+    if b2 < v:
+        f, v = 2, b2
+    if b3 < v:
+        f, v = 3, b3
+    return f, v
+
+
+@intrinsic
+def _prefetch_row(typingctx, arr, row):
+    """Ask the processor to bring the start of row ``row`` of ``arr`` (and, for rows longer than a cache line,
+    the line holding its end) into cache: ``llvm.prefetch``, a hint that never faults, not even out of bounds."""
+    if not (isinstance(arr, types.Array) and arr.ndim == 2 and isinstance(row, types.Integer)):
+        return None
+
+    def codegen(context, builder, sig, args):
+        aryty = sig.args[0]
+        ary = context.make_array(aryty)(context, builder, args[0])
+        r = context.cast(builder, args[1], sig.args[1], types.intp)
+        stride = builder.extract_value(ary.strides, 0)
+        addr = builder.add(builder.ptrtoint(ary.data, cgutils.intp_t), builder.mul(r, stride))
+        i32, i8p = ir.IntType(32), ir.IntType(8).as_pointer()
+        fn = builder.module.declare_intrinsic("llvm.prefetch", fnty=ir.FunctionType(ir.VoidType(), (i8p, i32, i32, i32)))
+        read, keep, data = ir.Constant(i32, 0), ir.Constant(i32, 3), ir.Constant(i32, 1)
+        builder.call(fn, (builder.inttoptr(addr, i8p), read, keep, data))
+        row_bytes = aryty.dtype.bitwidth // 8  # bytes of one item
+        end = builder.add(addr, builder.sub(builder.mul(builder.extract_value(ary.shape, 1),
+                                                         ir.Constant(cgutils.intp_t, row_bytes)),
+                                             ir.Constant(cgutils.intp_t, 1)))
+        builder.call(fn, (builder.inttoptr(end, i8p), read, keep, data))
+        return context.get_dummy_value()
+
+    return types.void(arr, row), codegen
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _prefetch_exit(t, b0, b1, b2, b3, u0, u1, u2, geom, nbr, conn):
+    """Prefetch the tetrahedron that a point at barycentric ``b`` in ``t`` moving along ``u`` enters next:
+    the neighbour through the face that the ray meets first (the smallest ``b_k / -rate_k`` over the
+    coordinates that fall). It is a hint for the walk that follows; nothing depends on it."""
+    r1 = geom[t, 3] * u0 + geom[t, 4] * u1 + geom[t, 5] * u2
+    r2 = geom[t, 6] * u0 + geom[t, 7] * u1 + geom[t, 8] * u2
+    r3 = geom[t, 9] * u0 + geom[t, 10] * u1 + geom[t, 11] * u2
+    f, num, den = -1, 1.0, 0.0  # the best ratio num / den so far (den = 0: none yet)
+    for k, bk, rk in ((0, b0, -(r1 + r2 + r3)), (1, b1, r1), (2, b2, r2), (3, b3, r3)):
+        if rk < 0.0 and (f < 0 or bk * den < num * -rk):
+            f, num, den = k, bk, -rk
+    if f >= 0:
+        nxt = nbr[t, f]
+        if nxt >= 0:
+            _prefetch_row(geom, nxt)
+            _prefetch_row(conn, nxt)
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _walk(x0, x1, x2, start, geom, nbr):
+    """Walk from ``start`` toward the point: ``(tetrahedron, b0, b1, b2, b3)``, the tetrahedron -1 at a
+    boundary face, -2 if lost."""
     t = start
     for _ in range(MAX_WALK):
-        if _bary(x, t, geom, bary) >= -BARY_TOL:
-            return t
-        f = 0
-        for i in range(1, 4):
-            if bary[i] < bary[f]:
-                f = i
+        b0, b1, b2, b3 = _bary(x0, x1, x2, t, geom)
+        f, low = _lowest(b0, b1, b2, b3)
+        if low >= -BARY_TOL:
+            return t, b0, b1, b2, b3
         nxt = nbr[t, f]
         if nxt < 0:
-            return -1
+            return -1, b0, b1, b2, b3
         t = nxt
-    return -2
+    return -2, 0.0, 0.0, 0.0, 0.0
 
 
 @njit(cache=True, nogil=True)  # not inlined: the rare fallback stays out of the hot loop's code
-def _search_bins(x, origin, spacing, dims, start, items, geom, bary):
-    """The tetrahedron containing ``x`` among those listed in its bin, or -1."""
+def _search_bins(x0, x1, x2, origin, spacing, dims, start, items, geom):
+    """The tetrahedron containing the point among those listed in its bin, or -1; with its barycentric
+    coordinates (the least negative, on ties the first listed)."""
     b = 0
     stride = 1
-    for k in range(3):
-        s = (x[k] - origin[k]) / spacing[k]
+    for k, xk in enumerate((x0, x1, x2)):
+        s = (xk - origin[k]) / spacing[k]
         if not (s >= -1e-9 * dims[k] and s <= dims[k] * (1.0 + 1e-9)):
-            return -1
+            return -1, 0.0, 0.0, 0.0, 0.0
         b += min(max(int(s), 0), dims[k] - 1) * stride
         stride *= dims[k]
     best, best_val = -1, -np.inf
+    c0 = c1 = c2 = c3 = 0.0
     for j in range(start[b], start[b + 1]):
         t = items[j]
-        v = _bary(x, t, geom, bary)
+        b0, b1, b2, b3 = _bary(x0, x1, x2, t, geom)
+        v = min(min(b0, b1), min(b2, b3))
         if v >= -BARY_TOL and v > best_val:
             best, best_val = t, v
-    return best
+            c0, c1, c2, c3 = b0, b1, b2, b3
+    return best, c0, c1, c2, c3
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _locate(x, hint, geom, nbr, origin, spacing, dims, start, items, bary):
+def _locate(x0, x1, x2, hint, geom, nbr, origin, spacing, dims, start, items):
+    """The tetrahedron containing the point and its barycentric coordinates, ``(t, b0, b1, b2, b3)``:
+    a walk from ``hint`` (when >= 0), else or when it fails the bin grid; ``t`` is -1 outside."""
     if hint >= 0:
-        t = _walk(x, hint, geom, nbr, bary)
+        t, b0, b1, b2, b3 = _walk(x0, x1, x2, hint, geom, nbr)
         if t >= 0:
-            return t
-    t = _search_bins(x, origin, spacing, dims, start, items, geom, bary)
-    if t >= 0:
-        _bary(x, t, geom, bary)
-    return t
+            return t, b0, b1, b2, b3
+    return _search_bins(x0, x1, x2, origin, spacing, dims, start, items, geom)
 
 
 @njit(cache=True, parallel=True)
 def _locate_many(xs, hints, geom, nbr, origin, spacing, dims, start, items, tets_out, bary_out):
     for i in prange(xs.shape[0]):
-        bary = bary_out[i]  # the point's own output row is its scratch
-        t = _locate(xs[i], hints[i], geom, nbr, origin, spacing, dims, start, items, bary)
+        t, b0, b1, b2, b3 = _locate(xs[i, 0], xs[i, 1], xs[i, 2], hints[i], geom, nbr, origin, spacing, dims, start,
+                                    items)
         tets_out[i] = t
         if t < 0:
-            bary[:] = 0.0
+            b0 = b1 = b2 = b3 = 0.0
+        bary_out[i, 0], bary_out[i, 1], bary_out[i, 2], bary_out[i, 3] = b0, b1, b2, b3
 
 
 @njit(cache=True, parallel=True)
@@ -321,6 +384,22 @@ def take_rows(order: np.ndarray, *arrays: np.ndarray) -> list[np.ndarray]:
         _take_rows(a2, order, res)
         out.append(res.reshape((len(order),) + a.shape[1:]))
     return out
+
+
+@njit(cache=True, parallel=True)
+def _put_rows(dest, src, out):
+    for j in prange(dest.shape[0]):
+        for c in range(src.shape[1]):
+            out[dest[j], c] = src[j, c]
+
+
+def put_rows(dest: np.ndarray, src: np.ndarray, out: np.ndarray) -> None:
+    """``out[dest] = src`` (1-D or 2-D, ``dest`` without repeats), scattered in parallel: the inverse of
+    :func:`take_rows`, for assembling pieces into their places without joining them first."""
+    s2 = np.ascontiguousarray(src).reshape(len(src), -1)
+    if not out.flags.c_contiguous:
+        raise ValueError("put_rows needs a C-contiguous output")
+    _put_rows(np.ascontiguousarray(dest, dtype=np.int64), s2, out.reshape(len(out), -1))
 
 
 def group_order(keys: np.ndarray, n_keys: int, reverse: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:

@@ -23,7 +23,7 @@ from typing import Callable, NamedTuple, Optional
 
 import numpy as np
 
-from .kernels import group_order, take_rows
+from .kernels import group_order, put_rows
 from .mesh import Mesh
 
 __all__ = [
@@ -202,7 +202,10 @@ class FrozenField:
         return self.field(x, np.full(len(x), self.time))
 
     def __call__(self, x: np.ndarray, s: np.ndarray, idx: np.ndarray) -> Sample:
-        got = self.velocity(x)
+        return self.tangent(self.velocity(x), idx)
+
+    def tangent(self, got: Sample, idx: np.ndarray) -> Sample:
+        """The unit-tangent sample of particles ``idx`` from the velocity sampled at their points."""
         speed = np.linalg.norm(got.v, axis=1)
         slow = got.inside & (got.stop == 0) & ~(speed > self.floor)
         stop = np.where(slow, int(Status.stalled), got.stop)
@@ -240,11 +243,14 @@ class State:
 Recorder = Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], None]
 
 
-def place(state: State, idx: np.ndarray, x: np.ndarray, t: np.ndarray, field: Sampler) -> None:
-    """Put particles ``idx`` at ``x`` at times ``t`` and sample the field there (release)."""
+def place(state: State, idx: np.ndarray, x: np.ndarray, t: np.ndarray, field: Sampler,
+          got: Optional[Sample] = None) -> None:
+    """Put particles ``idx`` at ``x`` at times ``t`` and sample the field there (release), or take ``got``,
+    the field's sample there when the caller has it."""
     if idx.size == 0:
         return
-    got = field(x, t, idx)
+    if got is None:
+        got = field(x, t, idx)
     state.x[idx], state.t[idx], state.v[idx], state.h[idx] = x, t, got.v, got.h
     status = np.where(got.stop != 0, got.stop, int(Status.active))
     status[~got.inside] = int(Status.exited)
@@ -470,12 +476,15 @@ def trace_streamlines(
     """
     L = len(seeds)
     signs = {"forward": (1.0,), "backward": (-1.0,), "both": (-1.0, 1.0)}[direction]
+    n_dir = len(signs)
     sign = np.repeat(np.asarray(signs), L)  # one row per (direction, seed): all directions advance together
-    start = np.tile(np.asarray(seeds, dtype=float).reshape(-1, 3), (len(signs), 1))
+    seeds = np.asarray(seeds, dtype=float).reshape(-1, 3)
+    start = np.tile(seeds, (n_dir, 1))
     rows = np.arange(len(sign))
-    probe = FrozenField(field, time, sign, 0.0)
-    speed0 = np.linalg.norm(probe.velocity(start[:L]).v, axis=1) if L else np.zeros(0)
+    at_seeds = FrozenField(field, time, sign, 0.0).velocity(seeds)  # sampled once, for every direction
+    speed0 = np.linalg.norm(at_seeds.v, axis=1)
     frozen = FrozenField(field, time, sign, STALL_SPEED * float(np.nanmax(speed0, initial=0.0)))
+    got = Sample(*(np.concatenate([a] * n_dir) for a in at_seeds))
 
     chunks: list[tuple[np.ndarray, ...]] = []
 
@@ -483,31 +492,37 @@ def trace_streamlines(
         chunks.append((idx, x, s, v))  # the engines hand over arrays of their own
 
     state = State.empty(len(sign))
-    place(state, rows, start, np.zeros(len(sign)), frozen)
-    record(rows, start, np.zeros(len(sign)), probe.velocity(start).v)
-    # the numba engine records the velocity itself (not the unit tangent it integrates)
+    place(state, rows, start, np.zeros(len(sign)), frozen, frozen.tangent(got, rows))
+    # the seed vertex, once per seed (with the forward part when both); the numba engine records the
+    # velocity itself (not the unit tangent it integrates)
+    first = rows[sign > 0] if direction == "both" else rows
+    record(first, start[first], np.zeros(len(first)), got.v[first])
     advance(state, length, frozen, step, record, integrator=integrator, tolerance=tolerance)
 
-    idx = np.concatenate([c[0] for c in chunks])
-    x = np.concatenate([c[1] for c in chunks])
-    arc = np.concatenate([c[2] for c in chunks]) * sign[idx]
-    vel = np.concatenate([c[3] for c in chunks])
-    if direction == "both":  # the seed vertex appears once, with the forward part
-        keep = ~((sign[idx] < 0) & (arc == 0.0))
-        idx, x, arc, vel = idx[keep], x[keep], arc[keep], vel[keep]
     # per seed by signed arc length (backward part reversed, then forward): rows were recorded in arc
-    # order, so a counting sort on (seed, direction) with the backward groups reversed does it
-    n_dir = len(signs)
+    # order, so a counting sort on (seed, direction) with the backward groups reversed gives each record
+    # its place, and the pieces are put there without being joined first
+    idx = np.concatenate([c[0] for c in chunks])
     seed = idx % L if L else idx
-    key = seed * n_dir + idx // max(L, 1)
-    order, _ = group_order(key, n_dir * L, np.tile(np.asarray(signs) < 0, L))
-    idx, x, arc, seed, vel = take_rows(order, idx, x, arc, seed, vel)
+    order, _ = group_order(seed * n_dir + idx // max(L, 1), n_dir * L, np.tile(np.asarray(signs) < 0, L))
+    place_of = np.empty_like(order)
+    place_of[order] = np.arange(len(order))
+    points, vel, arc = np.empty((len(idx), 3)), np.empty((len(idx), 3)), np.empty(len(idx))
+    done = 0
+    for c_idx, c_x, c_s, c_v in chunks:
+        dest = place_of[done:done + len(c_idx)]
+        put_rows(dest, c_x, points)
+        put_rows(dest, c_s, arc)
+        put_rows(dest, c_v, vel)
+        done += len(c_idx)
+    idx, seed = idx[order], seed[order]
+    arc *= sign[idx]
     return StreamlineSet(
-        points=x,
+        points=points,
         velocity=vel,
         arc_length=arc,
         seed=np.asarray(seed_ids)[seed],
         lengths=np.bincount(seed, minlength=L),
         status=state.status[idx],
-        ends=state.status.reshape(len(signs), L).copy(),
+        ends=state.status.reshape(n_dir, L).copy(),
     )
