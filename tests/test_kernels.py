@@ -333,3 +333,12 @@ def test_put_rows_is_fancy_assignment():
     assert np.array_equal(got_a, ref_a) and np.array_equal(got_c, ref_c)
     with pytest.raises(ValueError, match="C-contiguous"):
         put_rows(dest, c, np.empty((1000, 2))[:, 0])
+
+
+def test_invert_order_is_the_inverse_permutation():
+    """``invert_order`` equals NumPy's ``argsort`` of a permutation (its twin) and undoes it."""
+    from vtkflow.kernels import invert_order
+
+    order = np.random.default_rng(11).permutation(5000)
+    inv = invert_order(order)
+    assert np.array_equal(inv, np.argsort(order)) and np.array_equal(order[inv], np.arange(5000))

@@ -325,18 +325,18 @@ def _advance_many(X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, fiel
 
 @njit(cache=True, parallel=True)
 def _compact(rec_x, rec_t, rec_v, counts, first, rows, x, t, v):
-    """Copy the valid records (``counts[i]`` of particle ``i``) to flat arrays, step by step: the records of
-    step ``k`` of every particle that took it, from ``first[k]`` (contiguous reads of the step-major buffers)."""
-    for k in prange(first.shape[0] - 1):
-        j = first[k]
-        for i in range(counts.shape[0]):
-            if counts[i] > k:
-                rows[j] = i
-                t[j] = rec_t[k, i]
-                for c in range(3):
-                    x[j, c] = rec_x[k, i, c]
-                    v[j, c] = rec_v[k, i, c]
-                j += 1
+    """Copy the valid records (``counts[i]`` of particle ``i``) to flat arrays, particle by particle: those
+    of particle ``i`` in time order from ``first[i]``, so that a consumer moving each particle's records to
+    its own place writes runs, not scattered rows."""
+    for i in prange(counts.shape[0]):
+        j = first[i]
+        for k in range(counts[i]):
+            rows[j] = i
+            t[j] = rec_t[k, i]
+            for c in range(3):
+                x[j, c] = rec_x[k, i, c]
+                v[j, c] = rec_v[k, i, c]
+            j += 1
 
 
 class RecordBuffers:
@@ -365,8 +365,8 @@ def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_step
 
     ``dt`` holds each particle's suggested next step for the adaptive scheme (updated in place).
     With ``buffers`` (a :class:`RecordBuffers` of width ``max_steps``) every accepted step is recorded;
-    returns ``(rows, x, t, v)``: the records, flat, step by step (``rows`` indexes the given arrays), so in
-    time order within each particle. Without, returns ``None``.
+    returns ``(rows, x, t, v)``: the records, flat, particle by particle, each particle's in time order
+    (``rows`` indexes the given arrays). Without, returns ``None``.
     """
     n = len(t)
     rec = _NO_RECORDS if buffers is None else buffers.take(n)
@@ -375,12 +375,9 @@ def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_step
                   params, TABLEAUS[integrator], *rec, counts)
     if buffers is None:
         return None
-    # records per step: particles with more than k steps, for k < max_steps
-    taken = np.bincount(counts, minlength=int(max_steps) + 1)[: int(max_steps) + 1]
-    per_step = n - np.cumsum(taken)[:-1]
-    first = np.zeros(len(per_step) + 1, np.int64)
-    np.cumsum(per_step, out=first[1:])
-    total = int(counts.sum())
+    first = np.zeros(n + 1, np.int64)
+    np.cumsum(counts, out=first[1:])
+    total = int(first[-1])
     out = np.empty(total, np.int64), np.empty((total, 3)), np.empty(total), np.empty((total, 3))
     _compact(*rec, counts, first, out[0], out[1], out[2], out[3])
     return out

@@ -22,7 +22,7 @@ from numba.extending import intrinsic
 from .errors import InputError
 from .tetmesh import PER_BIN, BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "group_order", "take_rows", "put_rows", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "group_order", "take_rows", "put_rows", "invert_order", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -383,6 +383,19 @@ def take_rows(order: np.ndarray, *arrays: np.ndarray) -> list[np.ndarray]:
         res = np.empty((len(order), a2.shape[1]), a2.dtype)
         _take_rows(a2, order, res)
         out.append(res.reshape((len(order),) + a.shape[1:]))
+    return out
+
+
+@njit(cache=True, parallel=True)
+def _invert(order, out):
+    for j in prange(order.shape[0]):
+        out[order[j]] = j
+
+
+def invert_order(order: np.ndarray) -> np.ndarray:
+    """The inverse permutation: ``inv[order[j]] = j`` (where each row goes), without a temporary ``arange``."""
+    out = np.empty(len(order), np.int64)
+    _invert(np.ascontiguousarray(order, dtype=np.int64), out)
     return out
 
 

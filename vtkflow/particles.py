@@ -19,12 +19,15 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from enum import IntEnum
-from typing import Callable, NamedTuple, Optional
+from typing import TYPE_CHECKING, Callable, NamedTuple, Optional
 
 import numpy as np
 
-from .kernels import group_order, put_rows
+from .kernels import group_order, invert_order, put_rows
 from .mesh import Mesh
+
+if TYPE_CHECKING:
+    from .integrate import RecordBuffers
 
 __all__ = [
     "Status",
@@ -107,6 +110,15 @@ class TimeField:
         self.mesh = mesh
         self.t0 = self.t1 = 0.0
         self.cubic = False
+        self._records = None
+
+    def record_buffers(self) -> RecordBuffers:
+        """The numba engine's record buffers for this field, made once and reused by every call."""
+        if self._records is None:
+            from .integrate import RecordBuffers
+
+            self._records = RecordBuffers(CHUNK_STEPS)
+        return self._records
 
     def load(self, t0: float, u0: np.ndarray, t1: float, u1: np.ndarray,
              d0: Optional[np.ndarray] = None, d1: Optional[np.ndarray] = None) -> None:
@@ -197,6 +209,10 @@ class FrozenField:
         """See :meth:`TimeField.kernel_args`."""
         return self.field.kernel_args(self.time, self.floor)
 
+    def record_buffers(self) -> RecordBuffers:
+        """See :meth:`TimeField.record_buffers`."""
+        return self.field.record_buffers()
+
     def velocity(self, x: np.ndarray) -> Sample:
         """The velocity itself (not normalised) at ``x``."""
         return self.field(x, np.full(len(x), self.time))
@@ -283,13 +299,14 @@ def advance(
     if engine == "numpy" or not hasattr(field, "kernel_args"):
         advance_numpy(state, t_end, field, step, record, max_iterations)
         return
-    from .integrate import RecordBuffers, advance_particles
+    from .integrate import advance_particles
 
     mesh, args = field.kernel_args()
     signs = getattr(field, "sign", None)
     params = (MIN_STEP, MAX_GROWTH, float(tolerance or 0.0), DEFAULT_RTOL)
-    # with a recorder: chunks of CHUNK_STEPS steps into reused buffers; without: no buffers, no chunks
-    buffers = RecordBuffers(CHUNK_STEPS) if record is not None else None
+    # with a recorder: chunks of CHUNK_STEPS steps into the field's buffers, reused from call to call (fresh
+    # memory costs page faults); without: no buffers, no chunks
+    buffers = field.record_buffers() if record is not None else None
     chunk = CHUNK_STEPS if record is not None else 1 << 40
     for _ in range(max_iterations):
         active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
@@ -503,10 +520,11 @@ def trace_streamlines(
     # order, so a counting sort on (seed, direction) with the backward groups reversed gives each record
     # its place, and the pieces are put there without being joined first
     idx = np.concatenate([c[0] for c in chunks])
-    seed = idx % L if L else idx
-    order, _ = group_order(seed * n_dir + idx // max(L, 1), n_dir * L, np.tile(np.asarray(signs) < 0, L))
-    place_of = np.empty_like(order)
-    place_of[order] = np.arange(len(order))
+    if n_dir == 1:  # one part per seed: the row is the seed
+        order, _ = group_order(idx, L, np.full(L, signs[0] < 0))
+    else:
+        order, _ = group_order(idx % L * n_dir + idx // L, n_dir * L, np.tile(np.asarray(signs) < 0, L))
+    place_of = invert_order(order)
     points, vel, arc = np.empty((len(idx), 3)), np.empty((len(idx), 3)), np.empty(len(idx))
     done = 0
     for c_idx, c_x, c_s, c_v in chunks:
@@ -515,8 +533,11 @@ def trace_streamlines(
         put_rows(dest, c_s, arc)
         put_rows(dest, c_v, vel)
         done += len(c_idx)
-    idx, seed = idx[order], seed[order]
-    arc *= sign[idx]
+    del place_of
+    idx = idx[order]
+    seed = idx % L if n_dir > 1 else idx
+    if signs[0] < 0:  # the backward part's arc length is negative
+        arc[idx < L] *= -1.0
     return StreamlineSet(
         points=points,
         velocity=vel,
