@@ -160,9 +160,10 @@ BLOCK = 64
 
 
 @njit(cache=True, nogil=True, _nrt=False)
-def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t,
+def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t,
                  rec_v, k, cells, codes):
-    """Advance particle ``i`` by up to ``max_steps`` accepted steps; returns the number recorded.
+    """Advance particle ``i`` (a row of the state arrays, updated in place) by up to ``max_steps`` accepted
+    steps, recorded in column ``col`` of the record buffers; returns the number recorded.
 
     Compiled without reference counting (``_nrt=False``: no arrays are made here, ``k``, ``cells`` and
     ``codes`` are the stage work arrays): in a parallel loop, every reference to an array that all threads
@@ -258,7 +259,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
                         x0, x1, x2 = x0 + dist * d0, x1 + dist * d1, x2 + dist * d2
                         t = min(t + dist / ms, t_end)
                         if recording:
-                            _record(i, n, x0, x1, x2, t, v0 * scale, v1 * scale, v2 * scale, rec_x, rec_t, rec_v)
+                            _record(col, n, x0, x1, x2, t, v0 * scale, v1 * scale, v2 * scale, rec_x, rec_t, rec_v)
                         n += 1
                 S[i] = EXITED
                 break
@@ -298,7 +299,7 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
         if frozen:
             scale = sign * spn
         if recording:
-            _record(i, n, x0, x1, x2, t, v0 * scale, v1 * scale, v2 * scale, rec_x, rec_t, rec_v)
+            _record(col, n, x0, x1, x2, t, v0 * scale, v1 * scale, v2 * scale, rec_x, rec_t, rec_v)
         n += 1
         if sn > 0:
             S[i] = sn
@@ -313,25 +314,28 @@ def _advance_one(i, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, fie
 
 
 @njit(cache=True, parallel=True)
-def _advance_many(X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t, rec_v, counts):
+def _advance_many(rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t,
+                  rec_v, counts):
     ns = scheme[2].shape[0]
-    blocks = (X.shape[0] + BLOCK - 1) // BLOCK
+    n = rows.shape[0]
+    blocks = (n + BLOCK - 1) // BLOCK
     for b in prange(blocks):
         k, cells, codes = np.empty((ns, 3)), np.empty(ns, np.int64), np.empty(ns, np.int64)
-        for i in range(b * BLOCK, min((b + 1) * BLOCK, X.shape[0])):
-            counts[i] = _advance_one(i, X, T, V, H, C, S, D, signs[i], t_end, step, max_steps, mesh, field, params,
+        for j in range(b * BLOCK, min((b + 1) * BLOCK, n)):
+            i = rows[j]
+            counts[j] = _advance_one(i, j, X, T, V, H, C, S, D, signs[i], t_end, step, max_steps, mesh, field, params,
                                      scheme, rec_x, rec_t, rec_v, k, cells, codes)
 
 
 @njit(cache=True, parallel=True)
-def _compact(rec_x, rec_t, rec_v, counts, first, rows, x, t, v):
-    """Copy the valid records (``counts[i]`` of particle ``i``) to flat arrays, particle by particle: those
-    of particle ``i`` in time order from ``first[i]``, so that a consumer moving each particle's records to
-    its own place writes runs, not scattered rows."""
+def _compact(rec_x, rec_t, rec_v, counts, rows, first, which, x, t, v):
+    """Copy the valid records (``counts[i]`` in column ``i``, particle ``rows[i]``) to flat arrays, particle
+    by particle: column ``i``'s in time order from ``first[i]``, so that a consumer moving each particle's
+    records to its own place writes runs, not scattered rows."""
     for i in prange(counts.shape[0]):
         j = first[i]
         for k in range(counts[i]):
-            rows[j] = i
+            which[j] = rows[i]
             t[j] = rec_t[k, i]
             for c in range(3):
                 x[j, c] = rec_x[k, i, c]
@@ -359,19 +363,21 @@ class RecordBuffers:
 _NO_RECORDS = np.empty((0, 0, 3)), np.empty((0, 0)), np.empty((0, 0, 3))  # nothing recorded
 
 
-def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params, integrator="rk4",
-                      buffers=None):
-    """Advance the given particles (rows of the arrays, updated in place) by up to ``max_steps`` steps.
+def advance_particles(rows, x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params,
+                      integrator="rk4", buffers=None):
+    """Advance particles ``rows`` of the state arrays (``x``, ``t``, ``v``, ``h``, ``cell``, ``status``, ``dt``,
+    ``signs``: one row per particle, updated in place, no copies) by up to ``max_steps`` steps.
 
-    ``dt`` holds each particle's suggested next step for the adaptive scheme (updated in place).
+    ``dt`` holds each particle's suggested next step for the adaptive scheme.
     With ``buffers`` (a :class:`RecordBuffers` of width ``max_steps``) every accepted step is recorded;
-    returns ``(rows, x, t, v)``: the records, flat, particle by particle, each particle's in time order
-    (``rows`` indexes the given arrays). Without, returns ``None``.
+    returns ``(which, x, t, v)``: the records, flat, particle by particle, each particle's in time order
+    (``which``: their rows of the state arrays). Without, returns ``None``.
     """
-    n = len(t)
+    rows = np.ascontiguousarray(rows, dtype=np.int64)
+    n = len(rows)
     rec = _NO_RECORDS if buffers is None else buffers.take(n)
     counts = np.zeros(n, np.int64)
-    _advance_many(x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh, field,
+    _advance_many(rows, x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh, field,
                   params, TABLEAUS[integrator], *rec, counts)
     if buffers is None:
         return None
@@ -379,5 +385,5 @@ def advance_particles(x, t, v, h, cell, status, dt, signs, t_end, step, max_step
     np.cumsum(counts, out=first[1:])
     total = int(first[-1])
     out = np.empty(total, np.int64), np.empty((total, 3)), np.empty(total), np.empty((total, 3))
-    _compact(*rec, counts, first, out[0], out[1], out[2], out[3])
+    _compact(*rec, counts, rows, first, *out)
     return out

@@ -302,7 +302,8 @@ def advance(
     from .integrate import advance_particles
 
     mesh, args = field.kernel_args()
-    signs = getattr(field, "sign", None)
+    sign = getattr(field, "sign", None)
+    signs = np.ones(len(state.t)) if sign is None else np.ascontiguousarray(sign, dtype=np.float64)
     params = (MIN_STEP, MAX_GROWTH, float(tolerance or 0.0), DEFAULT_RTOL)
     # with a recorder: chunks of CHUNK_STEPS steps into the field's buffers, reused from call to call (fresh
     # memory costs page faults); without: no buffers, no chunks
@@ -313,17 +314,11 @@ def advance(
         if active.size == 0:
             return
         active = active[np.argsort(state.cell[active], kind="stable")]  # neighbours in memory work together
-        x, t, v, h = state.x[active], state.t[active], state.v[active], state.h[active]
-        cell, status = state.cell[active], state.status[active]
-        sg = np.ones(active.size) if signs is None else np.ascontiguousarray(signs[active], dtype=np.float64)
-        dts = state.dt[active]
-        got = advance_particles(x, t, v, h, cell, status, dts, sg, t_end, step, chunk, mesh, args, params, integrator,
-                                buffers)
-        state.x[active], state.t[active], state.v[active], state.h[active] = x, t, v, h
-        state.cell[active], state.status[active], state.dt[active] = cell, status, dts
+        # the engine works on the state's own arrays, row by row
+        got = advance_particles(active, state.x, state.t, state.v, state.h, state.cell, state.status, state.dt,
+                                signs, t_end, step, chunk, mesh, args, params, integrator, buffers)
         if got is not None and got[0].size:
-            rows, rx, rt, rv = got
-            record(active[rows], rx, rt, rv)
+            record(*got)
     raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} rounds")
 
 
