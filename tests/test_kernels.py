@@ -287,8 +287,9 @@ def test_group_order_matches_stable_argsort():
 
 
 def test_orientation_and_morton_order_match_numpy_twin():
-    """The numba orientation fix and Morton numbering (radix sort) equal their NumPy twin (cross-product
-    volumes, stable argsort), on a mixed mesh with half of its tetrahedra given the wrong orientation."""
+    """The numba orientation fix and Morton numbering (codes, counting sort, one gather) equal their NumPy
+    twin (cross-product volumes, stable argsort of the same leading bits), on a box mesh with half of its
+    tetrahedra given the wrong orientation; the input is left as it was."""
     from vtkflow.kernels import orient_and_order
     from vtkflow.tetmesh import orient_and_order_numpy
 
@@ -296,14 +297,18 @@ def test_orientation_and_morton_order_match_numpy_twin():
     pts = np.asarray(g.points, float)
     tets = np.asarray(g.cells_dict[10], np.int64).copy()
     tets[::2] = tets[::2][:, [0, 2, 1, 3]]
-    fast, slow = tets.copy(), tets.copy()
-    order = orient_and_order(pts, fast)
-    expect = orient_and_order_numpy(pts, slow)
+    before = tets.copy()
+    fast, order = orient_and_order(pts, tets)
+    slow, expect = orient_and_order_numpy(pts, tets)
+    np.testing.assert_array_equal(tets, before)
     np.testing.assert_array_equal(fast, slow)
     np.testing.assert_array_equal(order, expect)
+    assert sorted(order) == list(range(len(tets)))
     p = pts[fast]
     vol = np.einsum("ij,ij->i", np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), p[:, 3] - p[:, 0])
     assert (vol > 0).all()
+    # each tetrahedron keeps its vertices (up to the swap)
+    np.testing.assert_array_equal(np.sort(fast, axis=1), np.sort(tets[order], axis=1))
 
 
 def test_take_rows_is_fancy_indexing():
@@ -342,3 +347,15 @@ def test_invert_order_is_the_inverse_permutation():
     order = np.random.default_rng(11).permutation(5000)
     inv = invert_order(order)
     assert np.array_equal(inv, np.argsort(order)) and np.array_equal(order[inv], np.arange(5000))
+
+
+def test_bounds_and_morton_bits():
+    """``kernels.bounds`` equals NumPy's per-axis min and max (its twin); ``morton_bits`` takes whole octree
+    levels, about one level short of one item per cell."""
+    from vtkflow.kernels import bounds
+    from vtkflow.tetmesh import morton_bits
+
+    p = np.random.default_rng(12).normal(size=(1001, 3))
+    lo, hi = bounds(p)
+    assert np.array_equal(lo, p.min(axis=0)) and np.array_equal(hi, p.max(axis=0))
+    assert [morton_bits(n) for n in (1, 8, 63, 64, 1_191_640, 2**70)] == [3, 3, 3, 6, 18, 63]

@@ -22,7 +22,7 @@ from numba.extending import intrinsic
 from .errors import InputError
 from .tetmesh import PER_BIN, BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "group_order", "take_rows", "put_rows", "invert_order", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "group_order", "take_rows", "put_rows", "invert_order", "bounds", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -293,7 +293,7 @@ def neighbours(tets: np.ndarray) -> np.ndarray:
     are bucketed by their smallest vertex (a counting sort), then paired within each small bucket."""
     tets = np.ascontiguousarray(tets, dtype=np.int64)
     m = len(tets)
-    n_points = int(tets.max()) + 1 if m else 0
+    n_points = int(_largest(tets.reshape(-1))) + 1 if m else 0
     # 32-bit work arrays where the numbers fit: half the memory to fill (and fault in) on 4 M faces
     idx = np.int32 if max(4 * m, n_points) < 2**31 else np.int64
     lo, mid, hi, nbr = (np.empty(4 * m, idx) for _ in range(4))
@@ -318,18 +318,38 @@ def _spread21(v):
     return v
 
 
+@njit(cache=True, nogil=True)
+def _bounds(points, lo, hi):
+    lo[:] = np.inf
+    hi[:] = -np.inf
+    for i in range(points.shape[0]):
+        for k in range(3):
+            lo[k] = min(lo[k], points[i, k])
+            hi[k] = max(hi[k], points[i, k])
+
+
+def bounds(points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Smallest and largest coordinates ``(3,), (3,)`` of ``points`` (N, 3): ``points.min(axis=0)`` and
+    ``points.max(axis=0)`` in one pass (NumPy reduces across rows of three slowly)."""
+    lo, hi = np.empty(3), np.empty(3)
+    _bounds(np.ascontiguousarray(points, dtype=np.float64), lo, hi)
+    return lo, hi
+
+
+@njit(cache=True, nogil=True)
+def _largest(a):
+    """The largest entry of a 1-D array (not empty)."""
+    top = a[0]
+    for i in range(1, a.shape[0]):
+        top = max(top, a[i])
+    return top
+
+
 @njit(cache=True, parallel=True)
-def _orient_and_code(points, tets, lo, scale, codes):
-    """Make every tetrahedron positively oriented (swap vertices 1 and 2 where the signed volume is
-    negative) and put the Morton code of its centroid (21 bits per axis over ``lo``, ``scale``) in ``codes``."""
+def _centroid_codes(points, tets, lo, scale, codes):
+    """The Morton code of every tetrahedron's centroid (21 bits per axis over ``lo``, ``scale``)."""
     for t in prange(tets.shape[0]):
         a, b, c, d = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
-        e1x, e1y, e1z = points[b, 0] - points[a, 0], points[b, 1] - points[a, 1], points[b, 2] - points[a, 2]
-        e2x, e2y, e2z = points[c, 0] - points[a, 0], points[c, 1] - points[a, 1], points[c, 2] - points[a, 2]
-        e3x, e3y, e3z = points[d, 0] - points[a, 0], points[d, 1] - points[a, 1], points[d, 2] - points[a, 2]
-        vol = (e1y * e2z - e1z * e2y) * e3x + (e1z * e2x - e1x * e2z) * e3y + (e1x * e2y - e1y * e2x) * e3z
-        if vol < 0.0:
-            tets[t, 1], tets[t, 2] = c, b
         code = np.uint64(0)
         for k in range(3):
             m = 0.25 * (((points[a, k] + points[b, k]) + points[c, k]) + points[d, k])
@@ -338,17 +358,41 @@ def _orient_and_code(points, tets, lo, scale, codes):
         codes[t] = code
 
 
-def orient_and_order(points: np.ndarray, tets: np.ndarray) -> np.ndarray:
-    """Fix the orientation of ``tets`` (in place, positive signed volume) and return the permutation that
-    numbers them along a Morton curve of their centroids over the bounds of ``points`` (the numba twin of
-    :func:`vtkflow.tetmesh.orient_and_order_numpy`)."""
-    codes = np.empty(len(tets), np.uint64)
-    if len(tets) == 0:
-        return np.zeros(0, np.int64)
-    lo, hi = points.min(axis=0), points.max(axis=0)
+@njit(cache=True, parallel=True)
+def _gather_oriented(points, tets, order, out):
+    """``out[j] = tets[order[j]]``, positively oriented (vertices 1 and 2 swapped where the signed volume
+    is negative)."""
+    for j in prange(order.shape[0]):
+        t = order[j]
+        a, b, c, d = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
+        e1x, e1y, e1z = points[b, 0] - points[a, 0], points[b, 1] - points[a, 1], points[b, 2] - points[a, 2]
+        e2x, e2y, e2z = points[c, 0] - points[a, 0], points[c, 1] - points[a, 1], points[c, 2] - points[a, 2]
+        e3x, e3y, e3z = points[d, 0] - points[a, 0], points[d, 1] - points[a, 1], points[d, 2] - points[a, 2]
+        vol = (e1y * e2z - e1z * e2y) * e3x + (e1z * e2x - e1x * e2z) * e3y + (e1x * e2y - e1y * e2x) * e3z
+        if vol < 0.0:
+            b, c = c, b
+        out[j, 0], out[j, 1], out[j, 2], out[j, 3] = a, b, c, d
+
+
+def orient_and_order(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The tetrahedra numbered along a Morton curve of their centroids over the bounds of ``points`` (by
+    the code's leading :func:`vtkflow.tetmesh.morton_bits` bits, a counting sort) and positively oriented,
+    as a new int64 array; and the permutation (``tets`` is left as it is). The numba twin of
+    :func:`vtkflow.tetmesh.orient_and_order_numpy`."""
+    from .tetmesh import morton_bits
+
+    m = len(tets)
+    if m == 0:
+        return np.zeros((0, 4), np.int64), np.zeros(0, np.int64)
+    codes = np.empty(m, np.uint64)
+    lo, hi = bounds(points)
     scale = (2**21 - 1) / np.maximum(hi - lo, 1e-300)
-    _orient_and_code(points, tets, lo, scale, codes)
-    return np.argsort(codes, kind="stable")  # NumPy sorts 64-bit keys by radix: faster than a numba loop
+    _centroid_codes(points, tets, lo, scale, codes)
+    bits = morton_bits(m)
+    order, _ = group_order((codes >> np.uint64(63 - bits)).astype(np.int64), 1 << bits)
+    out = np.empty((m, 4), np.int64)
+    _gather_oriented(points, tets, order, out)
+    return out, order
 
 
 @njit(cache=True)
@@ -427,9 +471,9 @@ def group_order(keys: np.ndarray, n_keys: int, reverse: np.ndarray | None = None
     return order, np.diff(start)
 
 
-@njit(cache=True)
-def _cell_sizes(points, offsets, conn, cell_size, point_size):
-    for c in range(offsets.shape[0] - 1):
+@njit(cache=True, parallel=True)
+def _cell_sizes(points, offsets, conn, cell_size):
+    for c in prange(offsets.shape[0] - 1):
         d2 = 0.0
         for axis in range(3):
             a = np.inf
@@ -440,6 +484,10 @@ def _cell_sizes(points, offsets, conn, cell_size, point_size):
                 b = max(b, v)
             d2 += (b - a) ** 2
         cell_size[c] = np.sqrt(d2 / 3.0)
+
+
+@njit(cache=True)
+def _point_sizes(offsets, conn, cell_size, point_size):
     point_size[:] = np.inf
     for c in range(offsets.shape[0] - 1):
         for k in range(offsets[c], offsets[c + 1]):
@@ -451,7 +499,8 @@ def cell_sizes(points: np.ndarray, offsets: np.ndarray, conn: np.ndarray) -> tup
     the cells that use it."""
     cs = np.empty(len(offsets) - 1)
     ps = np.empty(len(points))
-    _cell_sizes(np.ascontiguousarray(points, dtype=np.float64), offsets, conn, cs, ps)
+    _cell_sizes(np.ascontiguousarray(points, dtype=np.float64), offsets, conn, cs)
+    _point_sizes(offsets, conn, cs, ps)
     return cs, ps
 
 

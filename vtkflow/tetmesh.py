@@ -190,27 +190,38 @@ def decompose(points: np.ndarray, offsets: np.ndarray, connectivity: np.ndarray,
     else:
         centres = sp.csr_matrix((0, n_points))
     all_points = np.concatenate([points, np.asarray(centres @ points)]) if centres.shape[0] else points
-    tet = np.concatenate(tets).astype(np.int64, copy=False) if tets else np.zeros((0, 4), np.int64)
-    parent = np.concatenate(parents).astype(np.int64) if parents else np.zeros(0, np.int64)
+    # one piece: used as it is (a view of the connectivity when the mesh has one cell type); it is not changed
+    tet = tets[0] if len(tets) == 1 else np.concatenate(tets) if tets else np.zeros((0, 4), np.int64)
+    parent = parents[0] if len(parents) == 1 else np.concatenate(parents) if parents else np.zeros(0, np.int64)
     # positive orientation (two vertices swapped where the signed volume is negative), and the tetrahedra
     # numbered along a Morton (Z-order) curve of their centroids: neighbours in space are then mostly
-    # neighbours in memory, which is what point location and interpolation spend time on. One numba pass
-    # and a radix sort (kernels.orient_and_order); orient_and_order_numpy below is its NumPy twin.
+    # neighbours in memory, which is what point location and interpolation spend time on. Codes, a
+    # counting sort and one gather (kernels.orient_and_order); orient_and_order_numpy below is its twin.
     from .kernels import orient_and_order
 
-    order = orient_and_order(all_points, tet)
-    return TetMesh(all_points, tet[order], parent[order], centres.tocsr())
+    tet, order = orient_and_order(all_points, tet)
+    return TetMesh(all_points, tet, np.asarray(parent, dtype=np.int64)[order], centres.tocsr())
 
 
-def orient_and_order_numpy(points: np.ndarray, tets: np.ndarray) -> np.ndarray:
-    """NumPy twin of :func:`vtkflow.kernels.orient_and_order`: fix the orientation of ``tets`` in place and
-    return the Morton permutation of their centroids over the bounds of ``points``."""
+def orient_and_order_numpy(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """NumPy twin of :func:`vtkflow.kernels.orient_and_order`: the tetrahedra in Morton order of their
+    centroids over the bounds of ``points``, positively oriented (a new array); and the permutation."""
     p = points[tets]
+    centroids = 0.25 * (((p[:, 0] + p[:, 1]) + p[:, 2]) + p[:, 3])
+    order = morton_order(centroids, points.min(axis=0), points.max(axis=0))
+    out = np.array(tets[order], dtype=np.int64)
+    p = p[order]
     vol = np.einsum("ij,ij->i", np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), p[:, 3] - p[:, 0])
     neg = vol < 0
-    tets[neg] = tets[neg][:, [0, 2, 1, 3]]
-    centroids = 0.25 * (((p[:, 0] + p[:, 1]) + p[:, 2]) + p[:, 3])
-    return morton_order(centroids, points.min(axis=0), points.max(axis=0))
+    out[neg] = out[neg][:, [0, 2, 1, 3]]
+    return out, order
+
+
+def morton_bits(n: int) -> int:
+    """Leading bits of the 63-bit Morton code that order ``n`` items: whole octree levels, about one level
+    short of one item per cell (``3 floor(log2(n) / 3)``, at least 3), so that a counting sort over
+    ``2**bits`` keys orders them in linear time; items of one cell keep their order."""
+    return int(min(63, max(3, 3 * ((max(int(n), 2).bit_length() - 1) // 3))))
 
 
 def _spread_bits(v: np.ndarray) -> np.ndarray:
@@ -225,7 +236,8 @@ def _spread_bits(v: np.ndarray) -> np.ndarray:
 def morton_order(xyz: np.ndarray, lo: np.ndarray | None = None, hi: np.ndarray | None = None) -> np.ndarray:
     """Permutation that sorts points ``(N, 3)`` along a Morton (Z-order) curve over the box ``[lo, hi]``
     (default: their bounding box), 21 bits per axis (Morton 1966, IBM technical report; the
-    bit-spreading masks are common practice). Stable: equal codes keep their order."""
+    bit-spreading masks are common practice), by the code's leading :func:`morton_bits` bits. Stable:
+    points with equal leading bits keep their order."""
     if len(xyz) == 0:
         return np.zeros(0, np.int64)
     lo = xyz.min(axis=0) if lo is None else np.asarray(lo, float)
@@ -233,7 +245,7 @@ def morton_order(xyz: np.ndarray, lo: np.ndarray | None = None, hi: np.ndarray |
     scale = (2**21 - 1) / np.maximum(hi - lo, 1e-300)
     q = np.clip((xyz - lo) * scale, 0.0, 2**21 - 1).astype(np.uint64)
     code = _spread_bits(q[:, 0]) | (_spread_bits(q[:, 1]) << np.uint64(1)) | (_spread_bits(q[:, 2]) << np.uint64(2))
-    return np.argsort(code, kind="stable")
+    return np.argsort(code >> np.uint64(63 - morton_bits(len(xyz))), kind="stable")
 
 
 def face_neighbours(tets: np.ndarray) -> np.ndarray:
@@ -280,7 +292,9 @@ class BinGrid:
 def grid_shape(points: np.ndarray, n_tets: int, per_bin: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     """Origin, spacing and dimensions of a bin grid of about ``per_bin`` tetrahedra per bin over the
     bounds of ``points``, bins as close to cubes as the bounds allow; and the padding of the boxes."""
-    origin, top = points.min(axis=0), points.max(axis=0)
+    from .kernels import bounds
+
+    origin, top = bounds(points)
     extent = np.maximum(top - origin, 1e-300)
     cube = (np.prod(extent) / max(1.0, n_tets / per_bin)) ** (1.0 / 3.0)
     dims = np.clip(np.ceil(extent / cube), 1, 2048).astype(np.int64)
