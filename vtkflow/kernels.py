@@ -182,42 +182,56 @@ def _interpolate(tets, bary, conn, values, out):
             out[i, c] = acc
 
 
+#: Pieces (consecutive runs of tetrahedra) the bin grid is counted and filled in, in parallel; a fixed
+#: number, so that the lists do not depend on the number of threads.
+BIN_PIECES = 16
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _bin_range(points, tets, t, c, origin, spacing, dims, pad):
+    """First and last bin index along axis ``c`` of tetrahedron ``t``'s bounding box, padded by ``pad``."""
+    a = np.inf
+    b = -np.inf
+    for k in range(4):
+        v = points[tets[t, k], c]
+        a = min(a, v)
+        b = max(b, v)
+    return (min(max(int((a - pad - origin[c]) / spacing[c]), 0), dims[c] - 1),
+            min(max(int((b + pad - origin[c]) / spacing[c]), 0), dims[c] - 1))
+
+
 @njit(cache=True, parallel=True)
-def _bin_ranges(points, tets, origin, spacing, dims, pad, lo, hi):
-    """First and last bin index per axis of each tetrahedron's bounding box, padded by ``pad``."""
-    for t in prange(tets.shape[0]):
-        for c in range(3):
-            a = np.inf
-            b = -np.inf
-            for k in range(4):
-                v = points[tets[t, k], c]
-                a = min(a, v)
-                b = max(b, v)
-            lo[t, c] = min(max(int((a - pad - origin[c]) / spacing[c]), 0), dims[c] - 1)
-            hi[t, c] = min(max(int((b + pad - origin[c]) / spacing[c]), 0), dims[c] - 1)
+def _bin_pass(points, tets, origin, spacing, dims, pad, slots, items, fill):
+    """Count (``fill`` False: ``slots[p, b] += 1``) or list (``items[slots[p, b]] = t``, ``slots`` then holding
+    each piece's next free place in each bin) the tetrahedra of piece ``p`` that overlap bin ``b``."""
+    m = tets.shape[0]
+    n_pieces = slots.shape[0]
+    for p in prange(n_pieces):
+        for t in range(p * m // n_pieces, (p + 1) * m // n_pieces):
+            x0, x1 = _bin_range(points, tets, t, 0, origin, spacing, dims, pad)
+            y0, y1 = _bin_range(points, tets, t, 1, origin, spacing, dims, pad)
+            z0, z1 = _bin_range(points, tets, t, 2, origin, spacing, dims, pad)
+            for z in range(z0, z1 + 1):
+                for y in range(y0, y1 + 1):
+                    for x in range(x0, x1 + 1):
+                        b = x + dims[0] * (y + dims[1] * z)
+                        if fill:
+                            items[slots[p, b]] = t
+                        slots[p, b] += 1
 
 
 @njit(cache=True)
-def _bin_fill(lo, hi, dims, start):
-    """Count, then list, the tetrahedra of every bin (in tetrahedron order within a bin); returns the list."""
-    start[:] = 0
-    for t in range(lo.shape[0]):
-        for z in range(lo[t, 2], hi[t, 2] + 1):
-            for y in range(lo[t, 1], hi[t, 1] + 1):
-                for x in range(lo[t, 0], hi[t, 0] + 1):
-                    start[x + dims[0] * (y + dims[1] * z) + 1] += 1
-    for b in range(start.shape[0] - 1):
-        start[b + 1] += start[b]
-    items = np.empty(start[-1], np.int32)
-    fill = start[:-1].copy()
-    for t in range(lo.shape[0]):
-        for z in range(lo[t, 2], hi[t, 2] + 1):
-            for y in range(lo[t, 1], hi[t, 1] + 1):
-                for x in range(lo[t, 0], hi[t, 0] + 1):
-                    b = x + dims[0] * (y + dims[1] * z)
-                    items[fill[b]] = t
-                    fill[b] += 1
-    return items
+def _bin_starts(counts, start):
+    """Bin bounds from the per-piece counts; ``counts`` becomes each piece's first place in each bin
+    (pieces in order within a bin, so every bin lists its tetrahedra in tetrahedron order)."""
+    start[0] = 0
+    for b in range(counts.shape[1]):
+        at = start[b]
+        for p in range(counts.shape[0]):
+            n = counts[p, b]
+            counts[p, b] = at
+            at += n
+        start[b + 1] = at
 
 
 @njit(cache=True, parallel=True)
@@ -521,13 +535,17 @@ def tet_inverses(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.n
 
 
 def build_bins(points: np.ndarray, tets: np.ndarray, per_bin: float = PER_BIN) -> BinGrid:
-    """The bin grid of :func:`vtkflow.tetmesh.bin_grid` (its NumPy twin), built in two numba passes."""
+    """The bin grid of :func:`vtkflow.tetmesh.bin_grid` (its NumPy twin), counted and filled in parallel
+    over pieces of the tetrahedra (``BIN_PIECES``), each with its own counts."""
     origin, spacing, dims, pad = grid_shape(points, len(tets), per_bin)
-    lo = np.empty((len(tets), 3), np.int64)
-    hi = np.empty((len(tets), 3), np.int64)
-    _bin_ranges(points, tets, origin, spacing, dims, pad, lo, hi)
-    start = np.empty(int(np.prod(dims)) + 1, np.int64)
-    items = _bin_fill(lo, hi, dims, start)  # 32-bit tetrahedron numbers (the Locator checks the count)
+    n_bins = int(np.prod(dims))
+    slots = np.zeros((BIN_PIECES, n_bins), np.int64)
+    no_items = np.empty(0, np.int32)
+    _bin_pass(points, tets, origin, spacing, dims, pad, slots, no_items, False)
+    start = np.empty(n_bins + 1, np.int64)
+    _bin_starts(slots, start)
+    items = np.empty(int(start[-1]), np.int32)  # 32-bit tetrahedron numbers (the Locator checks the count)
+    _bin_pass(points, tets, origin, spacing, dims, pad, slots, items, True)
     return BinGrid(origin, spacing, dims, start, items)
 
 
