@@ -237,21 +237,19 @@ def _bin_starts(counts, start):
 @njit(cache=True, parallel=True)
 def _geometry(points, tets, geom):
     for t in prange(tets.shape[0]):
-        a = tets[t, 0]
-        e = np.empty((3, 3))
-        for r in range(3):
-            for c in range(3):
-                e[r, c] = points[tets[t, r + 1], c] - points[a, c]
-            geom[t, r] = points[a, r]
+        a, b, c, d = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
+        # edges from the first vertex (scalars: no array per tetrahedron)
+        e1x, e1y, e1z = points[b, 0] - points[a, 0], points[b, 1] - points[a, 1], points[b, 2] - points[a, 2]
+        e2x, e2y, e2z = points[c, 0] - points[a, 0], points[c, 1] - points[a, 1], points[c, 2] - points[a, 2]
+        e3x, e3y, e3z = points[d, 0] - points[a, 0], points[d, 1] - points[a, 1], points[d, 2] - points[a, 2]
         # rows of the inverse of the edge matrix [e1 e2 e3] (edges as columns): (e2 x e3, e3 x e1, e1 x e2) / det
-        for r in range(3):
-            u, v = e[(r + 1) % 3], e[(r + 2) % 3]
-            geom[t, 3 + 3 * r] = u[1] * v[2] - u[2] * v[1]
-            geom[t, 4 + 3 * r] = u[2] * v[0] - u[0] * v[2]
-            geom[t, 5 + 3 * r] = u[0] * v[1] - u[1] * v[0]
-        det = e[0, 0] * geom[t, 3] + e[0, 1] * geom[t, 4] + e[0, 2] * geom[t, 5]
-        for j in range(3, 12):
-            geom[t, j] = geom[t, j] / det if abs(det) > 1e-300 else np.inf
+        r = (e2y * e3z - e2z * e3y, e2z * e3x - e2x * e3z, e2x * e3y - e2y * e3x,
+             e3y * e1z - e3z * e1y, e3z * e1x - e3x * e1z, e3x * e1y - e3y * e1x,
+             e1y * e2z - e1z * e2y, e1z * e2x - e1x * e2z, e1x * e2y - e1y * e2x)
+        det = e1x * r[0] + e1y * r[1] + e1z * r[2]
+        geom[t, 0], geom[t, 1], geom[t, 2] = points[a, 0], points[a, 1], points[a, 2]
+        for j in range(9):
+            geom[t, 3 + j] = r[j] / det if abs(det) > 1e-300 else np.inf
 
 
 @njit(cache=True, parallel=True)
