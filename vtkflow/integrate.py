@@ -50,7 +50,9 @@ def _sample(x0, x1, x2, t, hint, mesh, field, sign, need_h=True):
     a = 0.0
     if t1 != t0:
         a = min(max((tt - t0) / (t1 - t0), 0.0), 1.0)
-    n0, n1, n2, n3 = conn[cell, 0], conn[cell, 1], conn[cell, 2], conn[cell, 3]
+    # unsigned row numbers: no wrap-around of negative indices to compute on every load
+    uc = np.uint64(cell)
+    n0, n1, n2, n3 = np.uint64(conn[uc, 0]), np.uint64(conn[uc, 1]), np.uint64(conn[uc, 2]), np.uint64(conn[uc, 3])
     # weights of the columns: u(t0) (0..2), u(t1) (3..5) and, cubic, the time slopes at t0 (6..8), t1 (9..11)
     wa, wb, wc, wd = 1.0 - a, a, 0.0, 0.0
     if cubic:  # cubic Hermite basis on [t0, t1] (slopes in time units: scaled by the interval)

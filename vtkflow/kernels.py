@@ -39,12 +39,13 @@ def _bary(x0, x1, x2, t, geom):
     one contiguous 96-byte record, so that a tetrahedron costs the walk one or two cache lines. The hot
     helpers take and return scalars, never array views or scratch arrays: inlined into a parallel loop,
     a view costs two atomic reference-count updates on memory that the threads share."""
-    d0 = x0 - geom[t, 0]
-    d1 = x1 - geom[t, 1]
-    d2 = x2 - geom[t, 2]
-    l1 = geom[t, 3] * d0 + geom[t, 4] * d1 + geom[t, 5] * d2
-    l2 = geom[t, 6] * d0 + geom[t, 7] * d1 + geom[t, 8] * d2
-    l3 = geom[t, 9] * d0 + geom[t, 10] * d1 + geom[t, 11] * d2
+    u = np.uint64(t)  # unsigned: no wrap-around of negative indices
+    d0 = x0 - geom[u, 0]
+    d1 = x1 - geom[u, 1]
+    d2 = x2 - geom[u, 2]
+    l1 = geom[u, 3] * d0 + geom[u, 4] * d1 + geom[u, 5] * d2
+    l2 = geom[u, 6] * d0 + geom[u, 7] * d1 + geom[u, 8] * d2
+    l3 = geom[u, 9] * d0 + geom[u, 10] * d1 + geom[u, 11] * d2
     return 1.0 - l1 - l2 - l3, l1, l2, l3
 
 
