@@ -145,3 +145,16 @@ def test_python_api_traces_with_the_recipe_names(tmp_path):
     np.testing.assert_array_equal(frames[-1][1].points, last.points)
     with pytest.raises(vtkflow.RecipeError, match="every"):
         vtkflow.trace(series, "streakline", np.zeros((1, 3)))  # a streakline needs 'every'
+
+
+def test_particles_are_grouped_by_region_before_each_engine_call():
+    """``_by_region`` is a permutation that puts unplaced particles (cell -1) first, then the others by
+    ``cell >> shift`` (a stable counting sort: its twin is NumPy's stable argsort of the same keys)."""
+    from vtkflow.particles import _by_region
+
+    cells = np.random.default_rng(13).integers(-1, 100_000, 1000)
+    order = _by_region(cells, 100_000)
+    shift = (100_000).bit_length() - (1000).bit_length()
+    keys = np.where(cells >= 0, (cells >> shift) + 1, 0)
+    np.testing.assert_array_equal(order, np.argsort(keys, kind="stable"))
+    assert (cells[order][: np.count_nonzero(cells < 0)] == -1).all()
