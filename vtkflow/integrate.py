@@ -14,9 +14,9 @@ threads (bitwise). The rules are those of the NumPy twin :func:`vtkflow.particle
 
 Two modes share the kernel: time-accurate (velocity linear in time between the two loaded snapshots) and
 frozen (the unit tangent ``sign * u / |u|`` at one time, integrated in arc length, for streamlines).
-At most ``max_steps`` accepted steps are taken per call, recorded into per-particle buffers (position,
-time, and the velocity itself, also in frozen mode); the Python wrapper calls again until every particle
-is done.
+At most ``max_steps`` accepted steps are taken per call, recorded into step-major buffers, one column per
+particle (position, time, and the velocity itself, also in frozen mode); the Python wrapper calls again
+until every particle is done. The particles of a call are rows of the state arrays, advanced in place.
 """
 
 from __future__ import annotations
