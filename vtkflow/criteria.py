@@ -33,6 +33,8 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit, prange
 
+from .kernels import _sort3, _triple
+
 __all__ = ["CRITERIA", "Criterion", "GradientOperator", "evaluate", "sym_eigvals", "core_lines", "volume_inside", "FIELDS"]
 
 
@@ -168,13 +170,8 @@ def _sym_eig3(a00, a01, a02, a11, a12, a22):
     e1 = q + 2.0 * p * np.cos(phi)
     e3 = q + 2.0 * p * np.cos(phi + 2.0 * np.pi / 3.0)
     e2 = 3.0 * q - e1 - e3
-    # sort (round-off can swap neighbours when two are equal)
-    if e2 > e1:
-        e1, e2 = e2, e1
-    if e3 > e2:
-        e2, e3 = e3, e2
-    if e2 > e1:
-        e1, e2 = e2, e1
+    # sort, largest first (round-off can swap neighbours when two are equal)
+    e3, e2, e1 = _sort3(e1, e2, e3)
     return e1, e2, e3
 
 
@@ -434,10 +431,7 @@ def core_lines(points: np.ndarray, conn: np.ndarray, nbr: np.ndarray, tet_grads:
 # -------------------------------------------------------------------------------------------- volume
 @njit(cache=True, nogil=True, inline="always")
 def _tet_volume(p, a, b, c, d):
-    e1x, e1y, e1z = p[b, 0] - p[a, 0], p[b, 1] - p[a, 1], p[b, 2] - p[a, 2]
-    e2x, e2y, e2z = p[c, 0] - p[a, 0], p[c, 1] - p[a, 1], p[c, 2] - p[a, 2]
-    e3x, e3y, e3z = p[d, 0] - p[a, 0], p[d, 1] - p[a, 1], p[d, 2] - p[a, 2]
-    return abs((e1y * e2z - e1z * e2y) * e3x + (e1z * e2x - e1x * e2z) * e3y + (e1x * e2y - e1y * e2x) * e3z) / 6.0
+    return abs(_triple(p, a, b, c, d)) / 6.0
 
 
 @njit(cache=True, parallel=True)

@@ -64,8 +64,9 @@ def _lowest(b0, b1, b2, b3):
 
 @intrinsic
 def _prefetch_row(typingctx, arr, row):
-    """Ask the processor to bring the start of row ``row`` of ``arr`` (and, for rows longer than a cache line,
-    the line holding its end) into cache: ``llvm.prefetch``, a hint that never faults, not even out of bounds."""
+    """Ask the processor to bring row ``row`` of ``arr`` into cache: the lines of its first and its last byte
+    (all of a row of up to 64 bytes; a 96-byte geometry row that starts late in a line also touches a
+    middle line, left to the walk). ``llvm.prefetch``: a hint that never faults, not even out of bounds."""
     if not (isinstance(arr, types.Array) and arr.ndim == 2 and isinstance(row, types.Integer)):
         return None
 
@@ -235,14 +236,39 @@ def _bin_starts(counts, start):
         start[b + 1] = at
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _edges(points, a, b, c, d):
+    """The edges ``(e1, e2, e3)`` from vertex ``a`` to ``b``, ``c``, ``d``, as nine scalars."""
+    return (points[b, 0] - points[a, 0], points[b, 1] - points[a, 1], points[b, 2] - points[a, 2],
+            points[c, 0] - points[a, 0], points[c, 1] - points[a, 1], points[c, 2] - points[a, 2],
+            points[d, 0] - points[a, 0], points[d, 1] - points[a, 1], points[d, 2] - points[a, 2])
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _triple(points, a, b, c, d):
+    """``(e1 x e2) . e3``: six times the signed volume of the tetrahedron ``a, b, c, d``."""
+    e1x, e1y, e1z, e2x, e2y, e2z, e3x, e3y, e3z = _edges(points, a, b, c, d)
+    return (e1y * e2z - e1z * e2y) * e3x + (e1z * e2x - e1x * e2z) * e3y + (e1x * e2y - e1y * e2x) * e3z
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _sort3(a, b, c):
+    """Three values in ascending order (a sorting network)."""
+    if a > b:
+        a, b = b, a
+    if b > c:
+        b, c = c, b
+    if a > b:
+        a, b = b, a
+    return a, b, c
+
+
 @njit(cache=True, parallel=True)
 def _geometry(points, tets, geom):
     for t in prange(tets.shape[0]):
         a, b, c, d = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
         # edges from the first vertex (scalars: no array per tetrahedron)
-        e1x, e1y, e1z = points[b, 0] - points[a, 0], points[b, 1] - points[a, 1], points[b, 2] - points[a, 2]
-        e2x, e2y, e2z = points[c, 0] - points[a, 0], points[c, 1] - points[a, 1], points[c, 2] - points[a, 2]
-        e3x, e3y, e3z = points[d, 0] - points[a, 0], points[d, 1] - points[a, 1], points[d, 2] - points[a, 2]
+        e1x, e1y, e1z, e2x, e2y, e2z, e3x, e3y, e3z = _edges(points, a, b, c, d)
         # rows of the inverse of the edge matrix [e1 e2 e3] (edges as columns): (e2 x e3, e3 x e1, e1 x e2) / det
         r = (e2y * e3z - e2z * e3y, e2z * e3x - e2x * e3z, e2x * e3y - e2y * e3x,
              e3y * e1z - e3z * e1y, e3z * e1x - e3x * e1z, e3x * e1y - e3y * e1x,
@@ -260,13 +286,7 @@ def _face_keys(tets, lo, mid, hi, nbr):
     for t in prange(tets.shape[0]):
         for f in range(4):
             nbr[4 * t + f] = -1
-            a, b, c = tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4]
-            if a > b:
-                a, b = b, a
-            if b > c:
-                b, c = c, b
-            if a > b:
-                a, b = b, a
+            a, b, c = _sort3(tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4])
             lo[4 * t + f], mid[4 * t + f], hi[4 * t + f] = a, b, c
 
 
@@ -378,11 +398,7 @@ def _gather_oriented(points, tets, order, out):
     for j in prange(order.shape[0]):
         t = order[j]
         a, b, c, d = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
-        e1x, e1y, e1z = points[b, 0] - points[a, 0], points[b, 1] - points[a, 1], points[b, 2] - points[a, 2]
-        e2x, e2y, e2z = points[c, 0] - points[a, 0], points[c, 1] - points[a, 1], points[c, 2] - points[a, 2]
-        e3x, e3y, e3z = points[d, 0] - points[a, 0], points[d, 1] - points[a, 1], points[d, 2] - points[a, 2]
-        vol = (e1y * e2z - e1z * e2y) * e3x + (e1z * e2x - e1x * e2z) * e3y + (e1x * e2y - e1y * e2x) * e3z
-        if vol < 0.0:
+        if _triple(points, a, b, c, d) < 0.0:
             b, c = c, b
         out[j, 0], out[j, 1], out[j, 2], out[j, 3] = a, b, c, d
 
