@@ -20,7 +20,9 @@ exact streamline) separates the path error from the arc-length bookkeeping.
 
 Timed runs are repeated (``--repeat``, default 3) and the fastest counts, on both sides: a run over many
 frames traces again and again in one process. vtkflow's first full-size call is reported too: it pays the
-page faults of fresh memory for its records and outputs (dear on a virtual machine).
+page faults of fresh memory for its records and outputs (dear on a virtual machine). Later calls write
+their outputs into the memory of earlier ones that the caller has dropped (``vtkflow.reuse``); the loop keeps
+the previous call's result while it makes the next, as a frame loop does.
 
 Usage: ``python benchmarks/steady.py [--quick] [--n 62] [--seeds 10000] [--length 0.5] [--json out.json]``.
 """

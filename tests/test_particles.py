@@ -158,3 +158,58 @@ def test_particles_are_grouped_by_region_before_each_engine_call():
     keys = np.where(cells >= 0, (cells >> shift) + 1, 0)
     np.testing.assert_array_equal(order, np.argsort(keys, kind="stable"))
     assert (cells[order][: np.count_nonzero(cells < 0)] == -1).all()
+
+
+def test_streamline_outputs_kept_by_the_caller_are_never_overwritten(cube):
+    """Streamline outputs reuse the memory of earlier frames only once the caller has let go of it: two
+    kept sets from different seeds stay as they were traced, a third reuses a dropped set's memory and
+    equals a fresh trace of the same seeds (common practice for buffer pools: a buffer is lent out once)."""
+    pts = cube.points
+    f = TimeField(cube)
+    u = np.stack([-(pts[:, 1] - 0.5), pts[:, 0] - 0.5, np.full(len(pts), 0.2)], axis=1)
+    f.load(0.0, u, 1.0, u)
+    seeds_a = np.array([[0.3, 0.5, 0.2], [0.6, 0.4, 0.3]])
+    seeds_b = np.array([[0.45, 0.6, 0.1], [0.7, 0.5, 0.5], [0.5, 0.3, 0.6]])
+
+    def trace(s):
+        return trace_streamlines(f, 0.0, s, np.arange(len(s)), "both", 0.25, 0.6)
+
+    a = trace(seeds_a)
+    a_copy = {k: np.array(getattr(a, k)) for k in ("points", "velocity", "arc_length", "seed", "status")}
+    b = trace(seeds_b)
+    assert not np.shares_memory(a.points, b.points)
+    c = trace(seeds_a)  # a and b alive: new memory again
+    for k, v in a_copy.items():
+        np.testing.assert_array_equal(getattr(a, k), v)
+        np.testing.assert_array_equal(getattr(c, k), v)
+    kept = b.points[:3]  # a view keeps b's memory from reuse
+    del a, b, c
+    d = trace(seeds_b)
+    assert not np.shares_memory(d.points, kept)
+    assert f.outputs.free("velocity")  # b's velocity buffer was dropped: free for the next frame
+
+
+def test_output_pool_lends_a_buffer_only_when_nothing_made_from_it_is_alive():
+    from vtkflow._vtk import numpy_to_vtk, vtk_to_numpy
+    from vtkflow.reuse import OutputPool
+
+    def address(x):
+        return x.__array_interface__["data"][0]
+
+    pool = OutputPool()
+    a = pool.empty("x", (100, 3))
+    b = pool.empty("x", (100, 3))  # a alive: other memory
+    kept = {address(a), address(b)}
+    assert len(kept) == 2
+    del a, b
+    c = pool.empty("x", (80, 3))  # smaller: a view of a kept buffer
+    assert address(c) in kept and c.shape == (80, 3)
+    arr = numpy_to_vtk(c, deep=False)  # VTK holds a reference to the array it wraps
+    del c
+    d = pool.empty("x", (80, 3))
+    assert address(d) in kept and address(d) != address(vtk_to_numpy(arr))
+    e = pool.empty("x", (80, 3))  # both buffers in use: new memory
+    assert address(e) not in kept
+    big = pool.empty("y", 10, np.int8)
+    assert big.dtype == np.int8 and big.shape == (10,)
+    assert pool.empty("y", 10, np.float64).dtype == np.float64  # another type: its own buffer

@@ -25,6 +25,7 @@ import numpy as np
 
 from .kernels import group_order, invert_order, put_rows
 from .mesh import Mesh
+from .reuse import OutputPool
 
 if TYPE_CHECKING:
     from .integrate import RecordBuffers
@@ -111,6 +112,8 @@ class TimeField:
         self.t0 = self.t1 = 0.0
         self.cubic = False
         self._records = None
+        #: memory of the streamline outputs, reused from frame to frame once the caller lets go of it
+        self.outputs = OutputPool()
 
     def record_buffers(self) -> RecordBuffers:
         """The numba engine's record buffers for this field, made once and reused by every call."""
@@ -212,6 +215,11 @@ class FrozenField:
     def record_buffers(self) -> RecordBuffers:
         """See :meth:`TimeField.record_buffers`."""
         return self.field.record_buffers()
+
+    @property
+    def outputs(self) -> OutputPool:
+        """See :attr:`TimeField.outputs`."""
+        return self.field.outputs
 
     def velocity(self, x: np.ndarray) -> Sample:
         """The velocity itself (not normalised) at ``x``."""
@@ -529,7 +537,9 @@ def trace_streamlines(
     else:
         order, _ = group_order(idx % L * n_dir + idx // L, n_dir * L, np.tile(np.asarray(signs) < 0, L))
     place_of = invert_order(order)
-    points, vel, arc = np.empty((len(idx), 3)), np.empty((len(idx), 3)), np.empty(len(idx))
+    # the outputs in memory of earlier frames that the caller has let go of (see vtkflow.reuse)
+    pool = field.outputs
+    points, vel, arc = pool.empty("points", (len(idx), 3)), pool.empty("velocity", (len(idx), 3)), pool.empty("arc", len(idx))
     done = 0
     for c_idx, c_x, c_s, c_v in chunks:
         dest = place_of[done:done + len(c_idx)]
@@ -546,8 +556,8 @@ def trace_streamlines(
         points=points,
         velocity=vel,
         arc_length=arc,
-        seed=np.asarray(seed_ids)[seed],
+        seed=np.take(np.asarray(seed_ids, dtype=np.int64), seed, out=pool.empty("seed", len(seed), np.int64), mode="clip"),
         lengths=np.bincount(seed, minlength=L),
-        status=state.status[idx],
+        status=np.take(state.status, idx, out=pool.empty("status", len(idx), np.int8), mode="clip"),
         ends=state.status.reshape(n_dir, L).copy(),
     )
