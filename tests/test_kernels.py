@@ -359,3 +359,22 @@ def test_bounds_and_morton_bits():
     lo, hi = bounds(p)
     assert np.array_equal(lo, p.min(axis=0)) and np.array_equal(hi, p.max(axis=0))
     assert [morton_bits(n) for n in (1, 8, 63, 64, 1_191_640, 2**70)] == [3, 3, 3, 6, 18, 63]
+
+
+def test_decomposition_rejects_cells_of_the_wrong_size_and_unsupported_types():
+    """Bad cell arrays get a one-line error naming the cell type and what was expected, whether the mesh
+    has one cell type (checked on the offsets in one pass) or several."""
+    from vtkflow.errors import InputError
+
+    pts = np.random.default_rng(0).uniform(size=(8, 3))
+    cases = [
+        # two tetrahedra with 3 and 5 points: the total is right, the sizes are not
+        (np.array([0, 3, 8]), np.arange(8) % 8, [10, 10], "type 10 does not have 4 points"),
+        # a tetrahedron and a pyramid of 4 points
+        (np.array([0, 4, 8]), np.arange(8), [10, 14], "type 14 does not have 5 points"),
+        (np.array([0, 4, 8]), np.arange(8), [10, 42], "cell type 42 is not supported"),
+        (np.array([0, 3, 6]), np.arange(6), [5, 5], "no volume cells"),
+    ]
+    for offsets, conn, types, message in cases:
+        with pytest.raises(InputError, match=message):
+            decompose(pts, offsets, conn, np.array(types, np.uint8))

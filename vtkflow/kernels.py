@@ -189,30 +189,37 @@ def _interpolate(tets, bary, conn, values, out):
 BIN_PIECES = 16
 
 
+@njit(cache=True, parallel=True)
+def _point_bins(points, origin, spacing, dims, pad, ranges):
+    """For each point, the bin index along each axis of the point moved by ``-pad`` (``ranges[:, 0:3]``) and
+    by ``+pad`` (``ranges[:, 3:6]``): a tetrahedron's padded bounding box spans, along each axis, from the
+    least of its vertices' first to the greatest of their second (the index is monotonic in the
+    coordinate), so the divisions are done once per point, not once per tetrahedron and pass."""
+    for i in prange(points.shape[0]):
+        for c in range(3):
+            ranges[i, c] = min(max(int((points[i, c] - pad - origin[c]) / spacing[c]), 0), dims[c] - 1)
+            ranges[i, 3 + c] = min(max(int((points[i, c] + pad - origin[c]) / spacing[c]), 0), dims[c] - 1)
+
+
 @njit(cache=True, nogil=True, inline="always")
-def _bin_range(points, tets, t, c, origin, spacing, dims, pad):
-    """First and last bin index along axis ``c`` of tetrahedron ``t``'s bounding box, padded by ``pad``."""
-    a = np.inf
-    b = -np.inf
-    for k in range(4):
-        v = points[tets[t, k], c]
-        a = min(a, v)
-        b = max(b, v)
-    return (min(max(int((a - pad - origin[c]) / spacing[c]), 0), dims[c] - 1),
-            min(max(int((b + pad - origin[c]) / spacing[c]), 0), dims[c] - 1))
+def _bin_range(ranges, tets, t, c):
+    """First and last bin index along axis ``c`` of tetrahedron ``t``'s padded bounding box."""
+    a, b, d, e = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
+    return (min(min(ranges[a, c], ranges[b, c]), min(ranges[d, c], ranges[e, c])),
+            max(max(ranges[a, 3 + c], ranges[b, 3 + c]), max(ranges[d, 3 + c], ranges[e, 3 + c])))
 
 
 @njit(cache=True, parallel=True)
-def _bin_pass(points, tets, origin, spacing, dims, pad, slots, items, fill):
+def _bin_pass(ranges, tets, dims, slots, items, fill):
     """Count (``fill`` False: ``slots[p, b] += 1``) or list (``items[slots[p, b]] = t``, ``slots`` then holding
     each piece's next free place in each bin) the tetrahedra of piece ``p`` that overlap bin ``b``."""
     m = tets.shape[0]
     n_pieces = slots.shape[0]
     for p in prange(n_pieces):
         for t in range(p * m // n_pieces, (p + 1) * m // n_pieces):
-            x0, x1 = _bin_range(points, tets, t, 0, origin, spacing, dims, pad)
-            y0, y1 = _bin_range(points, tets, t, 1, origin, spacing, dims, pad)
-            z0, z1 = _bin_range(points, tets, t, 2, origin, spacing, dims, pad)
+            x0, x1 = _bin_range(ranges, tets, t, 0)
+            y0, y1 = _bin_range(ranges, tets, t, 1)
+            z0, z1 = _bin_range(ranges, tets, t, 2)
             for z in range(z0, z1 + 1):
                 for y in range(y0, y1 + 1):
                     for x in range(x0, x1 + 1):
@@ -223,9 +230,9 @@ def _bin_pass(points, tets, origin, spacing, dims, pad, slots, items, fill):
 
 
 @njit(cache=True)
-def _bin_starts(counts, start):
-    """Bin bounds from the per-piece counts; ``counts`` becomes each piece's first place in each bin
-    (pieces in order within a bin, so every bin lists its tetrahedra in tetrahedron order)."""
+def _piece_starts(counts, start):
+    """Bucket bounds from per-piece counts ``(pieces, buckets)``; ``counts`` becomes each piece's first place
+    in each bucket (pieces in order within a bucket, so every bucket lists its entries in input order)."""
     start[0] = 0
     for b in range(counts.shape[1]):
         at = start[b]
@@ -280,28 +287,40 @@ def _geometry(points, tets, geom):
 
 
 @njit(cache=True, parallel=True)
-def _face_keys(tets, lo, mid, hi, nbr):
-    """The sorted vertex triple of every face (face ``4 t + f`` is opposite vertex ``f`` of ``t``); ``nbr``
-    set to -1 (no neighbour yet) in the same parallel pass."""
+def _face_keys(tets, mid, hi, nbr):
+    """The two larger vertices of every face (face ``4 t + f`` is opposite vertex ``f`` of ``t``; its
+    smallest is :func:`_face_low`); ``nbr`` set to -1 (no neighbour yet) in the same parallel pass."""
     for t in prange(tets.shape[0]):
         for f in range(4):
             nbr[4 * t + f] = -1
-            a, b, c = _sort3(tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4])
-            lo[4 * t + f], mid[4 * t + f], hi[4 * t + f] = a, b, c
+            _, b, c = _sort3(tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4])
+            mid[4 * t + f], hi[4 * t + f] = b, c
 
 
-@njit(cache=True)
-def _bucket_faces(lo, n_points, start, faces):
-    """Counting sort of the faces by their smallest vertex: bucket ``v`` is ``faces[start[v]:start[v + 1]]``."""
-    start[:] = 0
-    for i in range(lo.shape[0]):
-        start[lo[i] + 1] += 1
-    for v in range(n_points):
-        start[v + 1] += start[v]
-    fill = start[:-1].copy()
-    for i in range(lo.shape[0]):
-        faces[fill[lo[i]]] = i
-        fill[lo[i]] += 1
+@njit(cache=True, nogil=True, inline="always")
+def _face_low(tets, t, f):
+    """Smallest vertex of face ``f`` (opposite vertex ``f``) of tetrahedron ``t``."""
+    return min(tets[t, (f + 1) % 4], min(tets[t, (f + 2) % 4], tets[t, (f + 3) % 4]))
+
+
+#: Fixed pieces of the tetrahedra for the parallel counting sort of the faces (fixed, so that the buckets
+#: list their faces in the same order whatever the number of threads).
+FACE_PIECES = 4
+
+
+@njit(cache=True, parallel=True)
+def _face_pass(tets, slots, faces, fill):
+    """Count (``fill`` False: ``slots[p, v] += 1``) or list (``faces[slots[p, v]] = face``) the faces of
+    piece ``p`` of the tetrahedra by their smallest vertex ``v``."""
+    m = tets.shape[0]
+    n_pieces = slots.shape[0]
+    for p in prange(n_pieces):
+        for t in range(p * m // n_pieces, (p + 1) * m // n_pieces):
+            for f in range(4):
+                v = _face_low(tets, t, f)
+                if fill:
+                    faces[slots[p, v]] = 4 * t + f
+                slots[p, v] += 1
 
 
 @njit(cache=True, parallel=True)
@@ -323,17 +342,22 @@ def _pair_faces(faces, start, mid, hi, nbr):
 
 def neighbours(tets: np.ndarray) -> np.ndarray:
     """Face neighbours as :func:`vtkflow.tetmesh.face_neighbours` (its NumPy twin), in linear time: faces
-    are bucketed by their smallest vertex (a counting sort), then paired within each small bucket."""
-    tets = np.ascontiguousarray(tets, dtype=np.int64)
+    are bucketed by their smallest vertex (a parallel counting sort), then paired within each small bucket."""
+    tets = _index_table(tets)
     m = len(tets)
     n_points = int(_largest(tets.reshape(-1))) + 1 if m else 0
     # 32-bit work arrays where the numbers fit: half the memory to fill (and fault in) on 4 M faces
     idx = np.int32 if max(4 * m, n_points) < 2**31 else np.int64
-    lo, mid, hi, nbr = (np.empty(4 * m, idx) for _ in range(4))
-    _face_keys(tets, lo, mid, hi, nbr)
-    start = np.empty(n_points + 1, np.int64)
+    mid, hi, nbr = (np.empty(4 * m, idx) for _ in range(3))
+    _face_keys(tets, mid, hi, nbr)
+    # counting sort of the faces by their smallest vertex (computed again in each pass, not stored), in
+    # parallel over fixed pieces: bucket v is faces[start[v]:start[v + 1]], in face order
+    slots = np.zeros((FACE_PIECES, n_points), np.int64)
     faces = np.empty(4 * m, idx)
-    _bucket_faces(lo, n_points, start, faces)
+    _face_pass(tets, slots, faces, False)
+    start = np.empty(n_points + 1, np.int64)
+    _piece_starts(slots, start)
+    _face_pass(tets, slots, faces, True)
     _pair_faces(faces, start, mid, hi, nbr)
     return nbr.reshape(m, 4)
 
@@ -378,6 +402,20 @@ def _largest(a):
     return top
 
 
+@njit(cache=True, nogil=True)
+def _steps_equal(a, n):
+    """Whether every step ``a[i + 1] - a[i]`` of a 1-D array equals ``n``."""
+    for i in range(a.shape[0] - 1):
+        if a[i + 1] - a[i] != n:
+            return False
+    return True
+
+
+def uniform_cells(offsets: np.ndarray, n: int) -> bool:
+    """Whether every cell of a VTK cell array with these ``offsets`` has ``n`` points (one pass, no copies)."""
+    return len(offsets) < 2 or bool(_steps_equal(np.ascontiguousarray(offsets), int(n)))
+
+
 @njit(cache=True, parallel=True)
 def _centroid_codes(points, tets, lo, scale, codes):
     """The Morton code of every tetrahedron's centroid (21 bits per axis over ``lo``, ``scale``)."""
@@ -406,20 +444,22 @@ def _gather_oriented(points, tets, order, out):
 def orient_and_order(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """The tetrahedra numbered along a Morton curve of their centroids over the bounds of ``points`` (by
     the code's leading :func:`vtkflow.tetmesh.morton_bits` bits, a counting sort) and positively oriented,
-    as a new int64 array; and the permutation (``tets`` is left as it is). The numba twin of
+    as a new array of 32-bit vertex numbers (64-bit beyond 2**31 points; half the memory to fill, and what the
+    engine's kernels use); and the permutation (``tets`` is left as it is). The numba twin of
     :func:`vtkflow.tetmesh.orient_and_order_numpy`."""
     from .tetmesh import morton_bits
 
     m = len(tets)
+    index = np.int32 if len(points) < 2**31 else np.int64
     if m == 0:
-        return np.zeros((0, 4), np.int64), np.zeros(0, np.int64)
+        return np.zeros((0, 4), index), np.zeros(0, np.int64)
     codes = np.empty(m, np.uint64)
     lo, hi = bounds(points)
     scale = (2**21 - 1) / np.maximum(hi - lo, 1e-300)
     _centroid_codes(points, tets, lo, scale, codes)
     bits = morton_bits(m)
     order, _ = group_order((codes >> np.uint64(63 - bits)).astype(np.int64), 1 << bits)
-    out = np.empty((m, 4), np.int64)
+    out = np.empty((m, 4), index)
     _gather_oriented(points, tets, order, out)
     return out, order
 
@@ -533,12 +573,18 @@ def cell_sizes(points: np.ndarray, offsets: np.ndarray, conn: np.ndarray) -> tup
     return cs, ps
 
 
+def _index_table(a: np.ndarray) -> np.ndarray:
+    """``a`` as a C-contiguous table of 32- or 64-bit integers, copied only when it is neither."""
+    a = np.asarray(a)
+    return np.ascontiguousarray(a, dtype=a.dtype if a.dtype in (np.int32, np.int64) else np.int64)
+
+
 def tet_geometry(points: np.ndarray, tets: np.ndarray) -> np.ndarray:
     """Per-tetrahedron records ``(M, 12)`` for point location: the first vertex, then the inverse edge
     matrix row by row (barycentric coordinates are ``tinv @ (x - p0)``). Degenerate tetrahedra get
     infinite inverses (they never contain a point)."""
     geom = np.empty((len(tets), 12))
-    _geometry(np.ascontiguousarray(points, dtype=np.float64), np.ascontiguousarray(tets, dtype=np.int64), geom)
+    _geometry(np.ascontiguousarray(points, dtype=np.float64), _index_table(tets), geom)
     return geom
 
 
@@ -556,11 +602,13 @@ def build_bins(points: np.ndarray, tets: np.ndarray, per_bin: float = PER_BIN) -
     n_bins = int(np.prod(dims))
     slots = np.zeros((BIN_PIECES, n_bins), np.int64)
     no_items = np.empty(0, np.int32)
-    _bin_pass(points, tets, origin, spacing, dims, pad, slots, no_items, False)
+    ranges = np.empty((len(points), 6), np.int32)
+    _point_bins(np.ascontiguousarray(points, dtype=np.float64), origin, spacing, dims, pad, ranges)
+    _bin_pass(ranges, tets, dims, slots, no_items, False)
     start = np.empty(n_bins + 1, np.int64)
-    _bin_starts(slots, start)
+    _piece_starts(slots, start)
     items = np.empty(int(start[-1]), np.int32)  # 32-bit tetrahedron numbers (the Locator checks the count)
-    _bin_pass(points, tets, origin, spacing, dims, pad, slots, items, True)
+    _bin_pass(ranges, tets, dims, slots, items, True)
     return BinGrid(origin, spacing, dims, start, items)
 
 
@@ -586,7 +634,7 @@ class Locator:
         # 32-bit topology for the kernels: half the memory of 64-bit indices, on the walk's every step
         self.nbr = neighbours(tm.tets).astype(np.int32, copy=False)
         self.bins: BinGrid = build_bins(tm.points, tm.tets)
-        self.conn = tm.tets.astype(np.int32)
+        self.conn = tm.tets.astype(np.int32, copy=False)  # already 32-bit from the decomposition: no copy
 
     @property
     def p0(self) -> np.ndarray:

@@ -59,7 +59,7 @@ class TetMesh:
     ----------
     points : (P + C, 3) ndarray
         The mesh points, then one added centre point per hexahedron or voxel.
-    tets : (M, 4) ndarray of int64
+    tets : (M, 4) ndarray of int32 (int64 beyond 2**31 points)
         Positively oriented tetrahedra.
     parent : (M,) ndarray of int64
         The cell each tetrahedron comes from.
@@ -140,28 +140,32 @@ def decompose(points: np.ndarray, offsets: np.ndarray, connectivity: np.ndarray,
     types : (n_cells,) ndarray of uint8
         VTK cell types.
     """
+    from .kernels import orient_and_order, uniform_cells
+
     points = np.asarray(points, dtype=np.float64)
     n_cells = len(types)
-    sizes = np.diff(offsets)
-    cell_ids = np.arange(n_cells)
     supported = {TETRA: 4, PYRAMID: 5, WEDGE: 6, HEXAHEDRON: 8, VOXEL: 8}
-    for kind in np.unique(types):
+    count = np.bincount(np.asarray(types, dtype=np.uint8), minlength=256)  # cells of each type, one pass
+    for kind in np.flatnonzero(count):
         if int(kind) not in supported and int(kind) not in SURFACE_TYPES:
             raise InputError(f"cell type {int(kind)} is not supported by the particle engine (tetra, pyramid, wedge,"
                              " hexahedron, voxel; vertices, lines and surface cells are kept as boundary regions)")
-    if not np.isin(types, list(supported)).any():
+    if not count[list(supported)].any():
         raise InputError("the mesh has no volume cells (tetra, pyramid, wedge, hexahedron, voxel)")
     tets, parents = [], []
     hex_cells = []
     for kind, n in supported.items():
-        sel = cell_ids[types == kind]
-        if sel.size == 0:
+        if count[kind] == 0:
             continue
-        if np.any(sizes[sel] != n):
-            raise InputError(f"a cell of type {kind} does not have {n} points")
-        if sel.size == n_cells:  # a single cell type: the connectivity is already a table
+        if count[kind] == n_cells:  # a single cell type: the connectivity is already a table
+            if not uniform_cells(offsets, n):
+                raise InputError(f"a cell of type {kind} does not have {n} points")
+            sel = None if kind == TETRA else np.arange(n_cells)  # tetrahedra only: each is its own parent
             cells = np.asarray(connectivity).reshape(n_cells, n)
         else:
+            sel = np.flatnonzero(types == kind)
+            if np.any(offsets[sel + 1] - offsets[sel] != n):
+                raise InputError(f"a cell of type {kind} does not have {n} points")
             cells = connectivity[offsets[sel][:, None] + np.arange(n)]
         if kind == TETRA:
             tets.append(cells)
@@ -197,10 +201,9 @@ def decompose(points: np.ndarray, offsets: np.ndarray, connectivity: np.ndarray,
     # numbered along a Morton (Z-order) curve of their centroids: neighbours in space are then mostly
     # neighbours in memory, which is what point location and interpolation spend time on. Codes, a
     # counting sort and one gather (kernels.orient_and_order); orient_and_order_numpy below is its twin.
-    from .kernels import orient_and_order
-
     tet, order = orient_and_order(all_points, tet)
-    return TetMesh(all_points, tet, np.asarray(parent, dtype=np.int64)[order], centres.tocsr())
+    parent = order if parent is None else parent[order]  # tetrahedra only: tetrahedron t is cell order[t]
+    return TetMesh(all_points, tet, np.asarray(parent, dtype=np.int64), centres.tocsr())
 
 
 def orient_and_order_numpy(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
