@@ -286,17 +286,6 @@ def _geometry(points, tets, geom):
             geom[t, 3 + j] = r[j] / det if abs(det) > 1e-300 else np.inf
 
 
-@njit(cache=True, parallel=True)
-def _face_keys(tets, mid, hi, nbr):
-    """The two larger vertices of every face (face ``4 t + f`` is opposite vertex ``f`` of ``t``; its
-    smallest is :func:`_face_low`); ``nbr`` set to -1 (no neighbour yet) in the same parallel pass."""
-    for t in prange(tets.shape[0]):
-        for f in range(4):
-            nbr[4 * t + f] = -1
-            _, b, c = _sort3(tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4])
-            mid[4 * t + f], hi[4 * t + f] = b, c
-
-
 @njit(cache=True, nogil=True, inline="always")
 def _face_low(tets, t, f):
     """Smallest vertex of face ``f`` (opposite vertex ``f``) of tetrahedron ``t``."""
@@ -309,32 +298,38 @@ FACE_PIECES = 4
 
 
 @njit(cache=True, parallel=True)
-def _face_pass(tets, slots, faces, fill):
-    """Count (``fill`` False: ``slots[p, v] += 1``) or list (``faces[slots[p, v]] = face``) the faces of
-    piece ``p`` of the tetrahedra by their smallest vertex ``v``."""
+def _face_pass(tets, n_points, slots, faces, keys, fill):
+    """Count (``fill`` False: ``slots[p, v] += 1``) or list the faces of piece ``p`` of the tetrahedra by their
+    smallest vertex ``v``: ``faces[slots[p, v]]`` the face (``4 t + f``, opposite vertex ``f`` of ``t``) and
+    ``keys[slots[p, v]]`` its two other vertices as one number, so that pairing reads each bucket in a run."""
     m = tets.shape[0]
     n_pieces = slots.shape[0]
     for p in prange(n_pieces):
         for t in range(p * m // n_pieces, (p + 1) * m // n_pieces):
             for f in range(4):
-                v = _face_low(tets, t, f)
                 if fill:
+                    v, b, c = _sort3(tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4])
                     faces[slots[p, v]] = 4 * t + f
+                    keys[slots[p, v]] = np.int64(b) * n_points + c
+                else:
+                    v = _face_low(tets, t, f)
                 slots[p, v] += 1
 
 
 @njit(cache=True, parallel=True)
-def _pair_faces(faces, start, mid, hi, nbr):
+def _pair_faces(faces, keys, start, nbr):
     """Pair the faces with equal vertices within each bucket (both faces of a pair share a bucket, so
-    buckets are independent and each thread writes only its own buckets' entries)."""
+    buckets are independent and each thread writes only its own buckets' entries); unpaired faces get -1."""
     for v in prange(start.shape[0] - 1):
+        for p in range(start[v], start[v + 1]):
+            nbr[faces[p]] = -1
         for p in range(start[v], start[v + 1]):
             i = faces[p]
             if nbr[i] >= 0:
                 continue
             for q in range(p + 1, start[v + 1]):
-                j = faces[q]
-                if mid[j] == mid[i] and hi[j] == hi[i] and nbr[j] < 0:
+                if keys[q] == keys[p] and nbr[faces[q]] < 0:
+                    j = faces[q]
                     nbr[i] = j // 4
                     nbr[j] = i // 4
                     break
@@ -348,17 +343,17 @@ def neighbours(tets: np.ndarray) -> np.ndarray:
     n_points = int(_largest(tets.reshape(-1))) + 1 if m else 0
     # 32-bit work arrays where the numbers fit: half the memory to fill (and fault in) on 4 M faces
     idx = np.int32 if max(4 * m, n_points) < 2**31 else np.int64
-    mid, hi, nbr = (np.empty(4 * m, idx) for _ in range(3))
-    _face_keys(tets, mid, hi, nbr)
-    # counting sort of the faces by their smallest vertex (computed again in each pass, not stored), in
-    # parallel over fixed pieces: bucket v is faces[start[v]:start[v + 1]], in face order
+    if float(n_points) ** 2 >= 2.0**63:
+        raise ValueError(f"{n_points} points: face keys need n_points**2 < 2**63")
+    # counting sort of the faces by their smallest vertex, in parallel over fixed pieces: bucket v is
+    # faces[start[v]:start[v + 1]] (in face order), keys the same rows
     slots = np.zeros((FACE_PIECES, n_points), np.int64)
-    faces = np.empty(4 * m, idx)
-    _face_pass(tets, slots, faces, False)
+    faces, keys, nbr = np.empty(4 * m, idx), np.empty(4 * m, np.int64), np.empty(4 * m, idx)
+    _face_pass(tets, n_points, slots, faces, keys, False)
     start = np.empty(n_points + 1, np.int64)
     _piece_starts(slots, start)
-    _face_pass(tets, slots, faces, True)
-    _pair_faces(faces, start, mid, hi, nbr)
+    _face_pass(tets, n_points, slots, faces, keys, True)
+    _pair_faces(faces, keys, start, nbr)
     return nbr.reshape(m, 4)
 
 
