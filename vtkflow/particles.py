@@ -539,7 +539,8 @@ def trace_streamlines(
     place_of = invert_order(order)
     # the outputs in memory of earlier frames that the caller has let go of (see vtkflow.reuse)
     pool = field.outputs
-    points, vel, arc = pool.empty("points", (len(idx), 3)), pool.empty("velocity", (len(idx), 3)), pool.empty("arc", len(idx))
+    n = len(idx)
+    points, vel, arc = pool.empty("points", (n, 3)), pool.empty("velocity", (n, 3)), pool.empty("arc", n)
     done = 0
     for c_idx, c_x, c_s, c_v in chunks:
         dest = place_of[done:done + len(c_idx)]
@@ -556,8 +557,8 @@ def trace_streamlines(
         points=points,
         velocity=vel,
         arc_length=arc,
-        seed=np.take(np.asarray(seed_ids, dtype=np.int64), seed, out=pool.empty("seed", len(seed), np.int64), mode="clip"),
+        seed=np.take(np.asarray(seed_ids, dtype=np.int64), seed, out=pool.empty("seed", n, np.int64), mode="clip"),
         lengths=np.bincount(seed, minlength=L),
-        status=np.take(state.status, idx, out=pool.empty("status", len(idx), np.int8), mode="clip"),
+        status=np.take(state.status, idx, out=pool.empty("status", n, np.int8), mode="clip"),
         ends=state.status.reshape(n_dir, L).copy(),
     )
