@@ -286,12 +286,6 @@ def _geometry(points, tets, geom):
             geom[t, 3 + j] = r[j] / det if abs(det) > 1e-300 else np.inf
 
 
-@njit(cache=True, nogil=True, inline="always")
-def _face_low(tets, t, f):
-    """Smallest vertex of face ``f`` (opposite vertex ``f``) of tetrahedron ``t``."""
-    return min(tets[t, (f + 1) % 4], min(tets[t, (f + 2) % 4], tets[t, (f + 3) % 4]))
-
-
 #: Fixed pieces of the tetrahedra for the parallel counting sort of the faces (fixed, so that the buckets
 #: list their faces in the same order whatever the number of threads).
 FACE_PIECES = 4
@@ -307,12 +301,10 @@ def _face_pass(tets, n_points, slots, faces, keys, fill):
     for p in prange(n_pieces):
         for t in range(p * m // n_pieces, (p + 1) * m // n_pieces):
             for f in range(4):
+                v, b, c = _sort3(tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4])
                 if fill:
-                    v, b, c = _sort3(tets[t, (f + 1) % 4], tets[t, (f + 2) % 4], tets[t, (f + 3) % 4])
                     faces[slots[p, v]] = 4 * t + f
                     keys[slots[p, v]] = np.int64(b) * n_points + c
-                else:
-                    v = _face_low(tets, t, f)
                 slots[p, v] += 1
 
 
