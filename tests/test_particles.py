@@ -160,6 +160,26 @@ def test_particles_are_grouped_by_region_before_each_engine_call():
     assert (cells[order][: np.count_nonzero(cells < 0)] == -1).all()
 
 
+def test_just_released_particles_are_located_before_they_are_ordered(cube):
+    """``find_cells`` gives the particles without a tetrahedron (cell -1) the one the locator finds (the
+    reference: ``Locator.locate``, the bin grid without a hint; -1 outside the mesh), and leaves the rows it
+    is not given, and those that have a tetrahedron, as they are."""
+    from vtkflow.integrate import find_cells
+
+    rng = np.random.default_rng(5)
+    x = np.vstack([rng.uniform(0.0, 1.0, (40, 3)), [[1.5, 0.5, 0.5], [-0.1, 0.2, 0.3]]])
+    cell = np.full(len(x), -1, np.int64)
+    cell[3] = 7  # has a tetrahedron (its hint is kept, right or wrong)
+    rows = np.arange(1, len(x))  # row 0 is not among them
+    mesh, _ = uniform_field(cube, (1.0, 0.0, 0.0)).kernel_args()
+    find_cells(rows, x, cell, mesh)
+    want, _ = cube.locator.locate(x)
+    assert cell[0] == -1 and cell[3] == 7
+    others = np.setdiff1d(rows, [3])
+    np.testing.assert_array_equal(cell[others], want[others])
+    assert (cell[-2:] == -1).all() and (want[:-2] >= 0).all()
+
+
 def test_streamline_outputs_kept_by_the_caller_are_never_overwritten(cube):
     """Streamline outputs reuse the memory of earlier frames only once the caller has let go of it: two
     kept sets from different seeds stay as they were traced, a third reuses a dropped set's memory and

@@ -27,7 +27,7 @@ from numba import njit, prange
 from .kernels import _bary, _locate, _prefetch_exit
 from .particles import Status
 
-__all__ = ["advance_particles", "RecordBuffers", "TABLEAUS"]
+__all__ = ["advance_particles", "find_cells", "RecordBuffers", "TABLEAUS"]
 
 # status values as plain ints for the kernels; OUTSIDE marks a sample outside the mesh
 ACTIVE, EXITED, STALLED, NAN = int(Status.active), int(Status.exited), int(Status.stalled), int(Status.nan)
@@ -327,6 +327,22 @@ def _advance_many(rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh
             i = rows[j]
             counts[j] = _advance_one(i, j, X, T, V, H, C, S, D, signs[i], t_end, step, max_steps, mesh, field, params,
                                      scheme, rec_x, rec_t, rec_v, k, cells, codes)
+
+
+@njit(cache=True, parallel=True)
+def _find_cells(rows, X, C, mesh):
+    geom, nbr, conn, origin, spacing, dims, first, items = mesh
+    for j in prange(rows.shape[0]):
+        i = rows[j]
+        if C[i] < 0:
+            C[i] = _locate(X[i, 0], X[i, 1], X[i, 2], -1, geom, nbr, origin, spacing, dims, first, items)[0]
+
+
+def find_cells(rows, x, cell, mesh) -> None:
+    """Give the particles ``rows`` that have no tetrahedron yet (``cell`` -1, e.g. just released) the one
+    containing them, through the bin grid, as the engine itself would on their first step (-1 outside):
+    with it, they can be ordered by region before their first step."""
+    _find_cells(np.ascontiguousarray(rows, dtype=np.int64), x, cell, mesh)
 
 
 @njit(cache=True, parallel=True)

@@ -307,7 +307,7 @@ def advance(
     if engine == "numpy" or not hasattr(field, "kernel_args"):
         advance_numpy(state, t_end, field, step, record, max_iterations)
         return
-    from .integrate import advance_particles
+    from .integrate import advance_particles, find_cells
 
     mesh, args = field.kernel_args()
     sign = getattr(field, "sign", None)
@@ -321,7 +321,10 @@ def advance(
         active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
         if active.size == 0:
             return
-        active = active[_by_region(state.cell[active], len(mesh[0]))]  # neighbours in memory work together
+        # neighbours in memory work together (particles just released are located first, so that they too
+        # are ordered from their first step: in release order, the walk's loads miss the caches)
+        find_cells(active, state.x, state.cell, mesh)
+        active = active[_by_region(state.cell[active], len(mesh[0]))]
         # the engine works on the state's own arrays, row by row
         got = advance_particles(active, state.x, state.t, state.v, state.h, state.cell, state.status, state.dt,
                                 signs, t_end, step, chunk, mesh, args, params, integrator, buffers)
@@ -333,7 +336,7 @@ def advance(
 def _by_region(cells: np.ndarray, n_tets: int) -> np.ndarray:
     """Order of particles by the region of their tetrahedron: the tetrahedra are numbered along a Morton
     curve, so ``cell >> shift`` is a region of space, about one per particle (a linear-time counting
-    sort; particles not yet placed, ``cell = -1``, come first)."""
+    sort; particles outside the mesh, ``cell = -1``, come first)."""
     shift = max(0, int(n_tets).bit_length() - int(len(cells)).bit_length())
     keys = np.where(cells >= 0, (cells >> shift) + 1, 0)
     return group_order(keys, (int(n_tets) >> shift) + 2)[0]
