@@ -14,7 +14,7 @@ threads (bitwise). The rules are those of the NumPy twin :func:`vtkflow.particle
 
 Two modes share the kernel: time-accurate (velocity linear in time between the two loaded snapshots) and
 frozen (the unit tangent ``sign * u / |u|`` at one time, integrated in arc length, for streamlines).
-At most ``max_steps`` accepted steps are taken per call, recorded into step-major buffers, one column per
+At most ``max_steps`` accepted steps are taken per call, recorded into particle-major buffers, one row per
 particle (position, time, and the velocity itself, also in frozen mode); the Python wrapper calls again
 until every particle is done. The particles of a call are rows of the state arrays, advanced in place.
 """
@@ -152,9 +152,9 @@ TABLEAUS = {"rk4": (RK4_C, RK4_A, RK4_B, RK4_E, False), "dopri5": (DP_C, DP_A, D
 @njit(cache=True, nogil=True, inline="always")
 def _record(i, n, x0, x1, x2, t, v0, v1, v2, rec_x, rec_t, rec_v):
     """Record particle ``i``'s ``n``-th step."""
-    rec_x[n, i, 0], rec_x[n, i, 1], rec_x[n, i, 2] = x0, x1, x2
-    rec_v[n, i, 0], rec_v[n, i, 1], rec_v[n, i, 2] = v0, v1, v2
-    rec_t[n, i] = t
+    rec_x[i, n, 0], rec_x[i, n, 1], rec_x[i, n, 2] = x0, x1, x2
+    rec_v[i, n, 0], rec_v[i, n, 1], rec_v[i, n, 2] = v0, v1, v2
+    rec_t[i, n] = t
 
 
 #: Particles per parallel work item (one set of stage work arrays each).
@@ -165,7 +165,7 @@ BLOCK = 64
 def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t,
                  rec_v, k, cells, codes):
     """Advance particle ``i`` (a row of the state arrays, updated in place) by up to ``max_steps`` accepted
-    steps, recorded in column ``col`` of the record buffers; returns the number recorded.
+    steps, recorded in row ``col`` of the record buffers; returns the number recorded.
 
     Compiled without reference counting (``_nrt=False``: no arrays are made here, ``k``, ``cells`` and
     ``codes`` are the stage work arrays): in a parallel loop, every reference to an array that all threads
@@ -188,7 +188,7 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
             C[i] = cell
             return 0
     cap = D[i] if adaptive and D[i] > 0.0 else np.inf  # the adaptive scheme's suggested step
-    recording = rec_x.shape[0] > 0  # without buffers, steps are taken but not recorded
+    recording = rec_x.shape[1] > 0  # without buffers, steps are taken but not recorded
     # recorded velocities are the velocity itself; in frozen mode v is the unit tangent: scale it back
     frozen = field[3]
     scale = 1.0
@@ -347,24 +347,25 @@ def find_cells(rows, x, cell, mesh) -> None:
 
 @njit(cache=True, parallel=True)
 def _compact(rec_x, rec_t, rec_v, counts, rows, first, which, x, t, v):
-    """Copy the valid records (``counts[i]`` in column ``i``, particle ``rows[i]``) to flat arrays, particle
-    by particle: column ``i``'s in time order from ``first[i]``, so that a consumer moving each particle's
+    """Copy the valid records (``counts[i]`` in row ``i``, particle ``rows[i]``) to flat arrays, particle
+    by particle: row ``i``'s in time order from ``first[i]``, so that a consumer moving each particle's
     records to its own place writes runs, not scattered rows."""
     for i in prange(counts.shape[0]):
         j = first[i]
         for k in range(counts[i]):
             which[j] = rows[i]
-            t[j] = rec_t[k, i]
+            t[j] = rec_t[i, k]
             for c in range(3):
-                x[j, c] = rec_x[k, i, c]
-                v[j, c] = rec_v[k, i, c]
+                x[j, c] = rec_x[i, k, c]
+                v[j, c] = rec_v[i, k, c]
             j += 1
 
 
 class RecordBuffers:
-    """Record buffers for ``width`` steps of ``n`` particles, step-major (``x[k, i]`` is particle ``i``'s
-    ``k``-th record), kept across calls and grown when more particles come: the operating system maps
-    only the pages written, so a call in which particles take few steps costs little memory traffic."""
+    """Record buffers for ``width`` steps of ``n`` particles, particle-major (``x[i, k]`` is particle ``i``'s
+    ``k``-th record), kept across calls and grown when more particles come. Each particle writes its records
+    in a run and the compaction reads them in runs (step-major buffers, read particle by particle, took
+    twice as long: every record on another page)."""
 
     def __init__(self, width: int) -> None:
         self.width = int(width)
@@ -375,7 +376,7 @@ class RecordBuffers:
         if self._t.size < w * n:
             self._x, self._t, self._v = np.empty(w * n * 3), np.empty(w * n), np.empty(w * n * 3)
         # contiguous views of the first w * n entries: one compiled layout whatever n
-        return self._x[: w * n * 3].reshape(w, n, 3), self._t[: w * n].reshape(w, n), self._v[: w * n * 3].reshape(w, n, 3)
+        return self._x[: w * n * 3].reshape(n, w, 3), self._t[: w * n].reshape(n, w), self._v[: w * n * 3].reshape(n, w, 3)
 
 
 _NO_RECORDS = np.empty((0, 0, 3)), np.empty((0, 0)), np.empty((0, 0, 3))  # nothing recorded

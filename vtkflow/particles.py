@@ -78,13 +78,15 @@ class Sample(NamedTuple):
     """Velocity sampled at points: ``v (N, 3)``, local cell size ``h (N,)``, ``inside (N,)``, ``stop (N,)``.
 
     ``stop`` is 0 where the sample is usable, else the :class:`Status` that ends the particle there
-    (``nan``, ``stalled``).
+    (``nan``, ``stalled``). ``cell``, when the sampler gives it, is the tetrahedron found at each point (-1
+    outside): :func:`place` keeps it, so the engine need not locate the particles again.
     """
 
     v: np.ndarray
     h: np.ndarray
     inside: np.ndarray
     stop: np.ndarray
+    cell: Optional[np.ndarray] = None
 
 
 #: ``field(x, t, idx) -> Sample``: ``idx`` are the particles' row numbers (for per-particle settings).
@@ -157,7 +159,9 @@ class TimeField:
         return np.stack([(1 + 2 * a) * (1 - a) ** 2, a * a * (3 - 2 * a), a * (1 - a) ** 2 * dt, -a * a * (1 - a) * dt], axis=1)
 
     def __call__(self, x: np.ndarray, t: np.ndarray, idx: Optional[np.ndarray] = None) -> Sample:
-        values, inside = self.mesh.sample(x)
+        cell, bary = self.mesh.locate(x)
+        values = self.mesh.locator.interpolate(cell, bary, self.mesh.values)
+        inside = cell >= 0
         w = self.weights(t)
         v = np.zeros((len(x), 3))
         bad = np.zeros(len(x), bool)
@@ -169,7 +173,7 @@ class TimeField:
         bad &= inside
         v[bad] = 0.0
         stop = np.where(bad, int(Status.nan), 0)
-        return Sample(v, values[:, -1], inside, stop)
+        return Sample(v, values[:, -1], inside, stop, cell)
 
 
 def time_slopes(times: np.ndarray, k: int, snapshot: Callable[[int], np.ndarray]) -> np.ndarray:
@@ -234,7 +238,7 @@ class FrozenField:
         slow = got.inside & (got.stop == 0) & ~(speed > self.floor)
         stop = np.where(slow, int(Status.stalled), got.stop)
         unit = np.where(speed[:, None] > 0, got.v / np.where(speed > 0, speed, 1.0)[:, None], 0.0)
-        return Sample(unit * self.sign[idx, None], got.h, got.inside, stop)
+        return Sample(unit * self.sign[idx, None], got.h, got.inside, stop, got.cell)
 
 
 @dataclass
@@ -276,6 +280,8 @@ def place(state: State, idx: np.ndarray, x: np.ndarray, t: np.ndarray, field: Sa
     if got is None:
         got = field(x, t, idx)
     state.x[idx], state.t[idx], state.v[idx], state.h[idx] = x, t, got.v, got.h
+    if got.cell is not None:
+        state.cell[idx] = got.cell
     status = np.where(got.stop != 0, got.stop, int(Status.active))
     status[~got.inside] = int(Status.exited)
     state.status[idx] = status
@@ -516,7 +522,7 @@ def trace_streamlines(
     at_seeds = FrozenField(field, time, sign, 0.0).velocity(seeds)  # sampled once, for every direction
     speed0 = np.linalg.norm(at_seeds.v, axis=1)
     frozen = FrozenField(field, time, sign, STALL_SPEED * float(np.nanmax(speed0, initial=0.0)))
-    got = Sample(*(np.concatenate([a] * n_dir) for a in at_seeds))
+    got = Sample(*(None if a is None else np.concatenate([a] * n_dir) for a in at_seeds))
 
     chunks: list[tuple[np.ndarray, ...]] = []
 
