@@ -18,7 +18,7 @@ unit tangent of the analytic field, after the same arc length, for a sample of s
 stays in the cube and that both sides carried the whole length; the cross-track distance (end point to the
 exact streamline) separates the path error from the arc-length bookkeeping.
 
-Timed runs are repeated (``--repeat``, default 3) and the fastest counts, on both sides: a run over many
+Timed runs are repeated (``--repeat``, default 5) and the fastest counts, on both sides: a run over many
 frames traces again and again in one process. vtkflow's first full-size call is reported too: it pays the
 page faults of fresh memory for its records and outputs (dear on a virtual machine). Later calls write
 their outputs into the memory of earlier ones that the caller has dropped (``vtkflow.reuse``); the loop keeps
@@ -140,7 +140,7 @@ def main() -> None:
     ap.add_argument("--length", type=float, default=None, help="arc length per streamline; default 0.5, quick 0.25")
     ap.add_argument("--sample", type=int, default=None, help="seeds checked against solve_ivp; default 200, quick 40")
     ap.add_argument("--step", type=float, default=0.25, help="RK4 step in cells (both sides)")
-    ap.add_argument("--repeat", type=int, default=3, help="timed runs per side; the fastest counts (default 3)")
+    ap.add_argument("--repeat", type=int, default=5, help="timed runs per side; the fastest counts (default 5)")
     args = ap.parse_args()
     n = args.n or (20 if args.quick else 62)
     ns = args.seeds or (2000 if args.quick else 10_000)

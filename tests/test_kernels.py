@@ -271,19 +271,12 @@ def test_cell_and_point_sizes_match_numpy():
 
 
 def test_group_order_matches_stable_argsort():
-    """The linear-time grouping equals NumPy's stable argsort (its twin); flagged groups come reversed."""
+    """The linear-time grouping equals NumPy's stable argsort (its twin)."""
     rng = np.random.default_rng(7)
     keys = rng.integers(0, 50, 5000)
     order, sizes = group_order(keys, 60)
     np.testing.assert_array_equal(order, np.argsort(keys, kind="stable"))
     np.testing.assert_array_equal(sizes, np.bincount(keys, minlength=60))
-    flip = np.arange(60) % 3 == 0
-    order, _ = group_order(keys, 60, flip)
-    expect = np.argsort(keys, kind="stable")
-    for k in np.flatnonzero(flip):
-        sel = keys[expect] == k
-        expect[sel] = expect[sel][::-1]
-    np.testing.assert_array_equal(order, expect)
 
 
 def test_orientation_and_morton_order_match_numpy_twin():
@@ -320,33 +313,6 @@ def test_take_rows_is_fancy_indexing():
     a, b, c = rng.normal(size=(1000, 3)), rng.integers(0, 50, 1000), rng.normal(size=1000)
     for got, ref in zip(take_rows(order, a, b, c), (a[order], b[order], c[order])):
         assert got.dtype == ref.dtype and np.array_equal(got, ref)
-
-
-def test_put_rows_is_fancy_assignment():
-    """The parallel scatter equals NumPy's ``out[dest] = src`` (its twin), pieces put into one output."""
-    from vtkflow.kernels import put_rows
-
-    rng = np.random.default_rng(10)
-    dest = rng.permutation(1000)
-    a, c = rng.normal(size=(1000, 3)), rng.normal(size=1000)
-    got_a, got_c = np.full((1000, 3), np.nan), np.full(1000, np.nan)
-    for piece in (slice(0, 400), slice(400, 1000)):  # in two pieces, as the streamline assembly does
-        put_rows(dest[piece], a[piece], got_a)
-        put_rows(dest[piece], c[piece], got_c)
-    ref_a, ref_c = np.empty_like(a), np.empty_like(c)
-    ref_a[dest], ref_c[dest] = a, c
-    assert np.array_equal(got_a, ref_a) and np.array_equal(got_c, ref_c)
-    with pytest.raises(ValueError, match="C-contiguous"):
-        put_rows(dest, c, np.empty((1000, 2))[:, 0])
-
-
-def test_invert_order_is_the_inverse_permutation():
-    """``invert_order`` equals NumPy's ``argsort`` of a permutation (its twin) and undoes it."""
-    from vtkflow.kernels import invert_order
-
-    order = np.random.default_rng(11).permutation(5000)
-    inv = invert_order(order)
-    assert np.array_equal(inv, np.argsort(order)) and np.array_equal(order[inv], np.arange(5000))
 
 
 def test_bounds_and_morton_bits():

@@ -180,6 +180,50 @@ def test_just_released_particles_are_located_before_they_are_ordered(cube):
     assert (cell[-2:] == -1).all() and (want[:-2] >= 0).all()
 
 
+def test_records_are_placed_as_a_sort_by_seed_and_signed_arc_length():
+    """``record_runs`` + ``place_records`` (the streamline assembly) against its obvious twin: NumPy's
+    lexsort of all records by (seed, signed arc length), for calls that hand over each row's records as
+    one run in arc order, rows in any order, backward rows (sign -1) reversed before the forward ones."""
+    from vtkflow.integrate import place_records, record_runs
+
+    rng = np.random.default_rng(3)
+    n_seeds = 50
+    sign = np.repeat([-1.0, 1.0], n_seeds)
+    n_rows = len(sign)
+    done = np.zeros(n_rows, np.int64)
+    calls = []
+    for _ in range(4):
+        rows = rng.permutation(n_rows)[: rng.integers(1, n_rows)]
+        steps = rng.integers(0, 5, len(rows))
+        which = np.repeat(rows, steps)
+        k = np.concatenate([done[r] + np.arange(m) for r, m in zip(rows, steps)]).astype(float)
+        done[rows] += steps
+        t = 0.1 * (k + 1.0) + 0.01 * (np.arange(n_rows) % n_seeds)[which]  # increasing along each row
+        calls.append((which, rng.normal(size=(len(which), 3)), t, rng.normal(size=(len(which), 3))))
+    runs = [record_runs(c[0], n_rows) for c in calls]
+    total = np.sum([count for _, count in runs], axis=0)
+    per_part = total.reshape(2, n_seeds)
+    offset = np.concatenate([[0], np.cumsum(per_part.sum(axis=0))[:-1]])
+    base = (offset + np.cumsum(per_part, axis=0) - per_part).reshape(-1)
+    seed_of = np.tile(np.arange(n_seeds) + 100, 2)
+    status = rng.integers(0, 5, n_rows).astype(np.int8)
+    n = int(total.sum())
+    out = (np.empty((n, 3)), np.empty((n, 3)), np.empty(n), np.empty(n, np.int64), np.empty(n, np.int8))
+    before = np.zeros(n_rows, np.int64)
+    for c, r in zip(calls, runs):
+        place_records(c, r, before, base, total, sign, seed_of, status, out)
+        before += r[1]
+
+    which, x, t, v = (np.concatenate(a) for a in zip(*calls))
+    arc = t * sign[which]
+    order = np.lexsort((arc, which % n_seeds))
+    np.testing.assert_array_equal(out[0], x[order])
+    np.testing.assert_array_equal(out[1], v[order])
+    np.testing.assert_array_equal(out[2], arc[order])
+    np.testing.assert_array_equal(out[3], seed_of[which[order]])
+    np.testing.assert_array_equal(out[4], status[which[order]])
+
+
 def test_streamline_outputs_kept_by_the_caller_are_never_overwritten(cube):
     """Streamline outputs reuse the memory of earlier frames only once the caller has let go of it: two
     kept sets from different seeds stay as they were traced, a third reuses a dropped set's memory and

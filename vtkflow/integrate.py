@@ -27,7 +27,7 @@ from numba import njit, prange
 from .kernels import _bary, _locate, _prefetch_exit
 from .particles import Status
 
-__all__ = ["advance_particles", "find_cells", "RecordBuffers", "TABLEAUS"]
+__all__ = ["advance_particles", "find_cells", "record_runs", "place_records", "RecordBuffers", "TABLEAUS"]
 
 # status values as plain ints for the kernels; OUTSIDE marks a sample outside the mesh
 ACTIVE, EXITED, STALLED, NAN = int(Status.active), int(Status.exited), int(Status.stalled), int(Status.nan)
@@ -359,6 +359,51 @@ def _compact(rec_x, rec_t, rec_v, counts, rows, first, which, x, t, v):
                 x[j, c] = rec_x[i, k, c]
                 v[j, c] = rec_v[i, k, c]
             j += 1
+
+
+@njit(cache=True, parallel=True)
+def _runs(which, start, count):
+    for j in prange(which.shape[0]):
+        if j == 0 or which[j] != which[j - 1]:
+            r = which[j]
+            k = j + 1
+            while k < which.shape[0] and which[k] == r:
+                k += 1
+            start[r] = j
+            count[r] = k - j
+
+
+def record_runs(which: np.ndarray, n_rows: int) -> tuple[np.ndarray, np.ndarray]:
+    """Where each row's records start in one call's records, and how many there are (0: none). The
+    engine hands each particle's records over as one run (see :func:`advance_particles`)."""
+    start, count = np.zeros(n_rows, np.int64), np.zeros(n_rows, np.int64)
+    _runs(np.ascontiguousarray(which, dtype=np.int64), start, count)
+    return start, count
+
+
+@njit(cache=True, parallel=True)
+def _place_records(which, x, t, v, start, before, base, total, sign, seed_of, status, points, vel, arc, seed, stat):
+    for j in prange(which.shape[0]):
+        r = which[j]
+        k = before[r] + j - start[r]  # the record's place in its row's whole path
+        d = base[r] + (total[r] - 1 - k if sign[r] < 0.0 else k)
+        for c in range(3):
+            points[d, c] = x[j, c]
+            vel[d, c] = v[j, c]
+        arc[d] = t[j] * sign[r]
+        seed[d] = seed_of[r]
+        stat[d] = status[r]
+
+
+def place_records(records, runs, before, base, total, sign, seed_of, status, out) -> None:
+    """Write one call's records (``records``: ``(which, x, t, v)``; ``runs``: :func:`record_runs` of them) to
+    their places in a path assembly ``out = (points, velocity, arc, seed, status)``: row ``r``'s ``k``-th record
+    overall (``before[r]`` in earlier calls) goes to ``base[r] + k``, or to ``base[r] + total[r] - 1 - k`` where
+    ``sign[r] < 0`` (the path reversed, its time negated); each place also gets the row's ``seed_of`` and
+    ``status``. One parallel pass: no sort, no joined copies."""
+    which, x, t, v = records
+    _place_records(np.ascontiguousarray(which, dtype=np.int64), x, t, v, runs[0], before, base, total, sign, seed_of,
+                   status, *out)
 
 
 class RecordBuffers:

@@ -22,7 +22,7 @@ from numba.extending import intrinsic
 from .errors import InputError
 from .tetmesh import PER_BIN, BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "group_order", "take_rows", "put_rows", "invert_order", "bounds", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
+__all__ = ["Locator", "group_order", "take_rows", "bounds", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -452,20 +452,19 @@ def orient_and_order(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, 
 
 
 @njit(cache=True)
-def _group_order(keys, reverse, start, order):
-    """Stable counting sort of ``keys`` (ints in ``[0, len(reverse))``) into ``order``; within a key whose
-    ``reverse`` flag is set, the order is reversed. ``start`` (n_keys + 1) receives the group bounds."""
+def _group_order(keys, start, order):
+    """Stable counting sort of ``keys`` (ints in ``[0, len(start) - 1)``) into ``order``; ``start``
+    (n_keys + 1) receives the group bounds."""
     start[:] = 0
     for i in range(keys.shape[0]):
         start[keys[i] + 1] += 1
-    for k in range(reverse.shape[0]):
+    for k in range(start.shape[0] - 1):
         start[k + 1] += start[k]
-    seen = np.zeros(reverse.shape[0], np.int64)
+    seen = np.zeros(start.shape[0] - 1, np.int64)
     for i in range(keys.shape[0]):
         k = keys[i]
-        pos = start[k + 1] - 1 - seen[k] if reverse[k] else start[k] + seen[k]
+        order[start[k] + seen[k]] = i
         seen[k] += 1
-        order[pos] = i
 
 
 @njit(cache=True, parallel=True)
@@ -486,44 +485,14 @@ def take_rows(order: np.ndarray, *arrays: np.ndarray) -> list[np.ndarray]:
     return out
 
 
-@njit(cache=True, parallel=True)
-def _invert(order, out):
-    for j in prange(order.shape[0]):
-        out[order[j]] = j
-
-
-def invert_order(order: np.ndarray) -> np.ndarray:
-    """The inverse permutation: ``inv[order[j]] = j`` (where each row goes), without a temporary ``arange``."""
-    out = np.empty(len(order), np.int64)
-    _invert(np.ascontiguousarray(order, dtype=np.int64), out)
-    return out
-
-
-@njit(cache=True, parallel=True)
-def _put_rows(dest, src, out):
-    for j in prange(dest.shape[0]):
-        for c in range(src.shape[1]):
-            out[dest[j], c] = src[j, c]
-
-
-def put_rows(dest: np.ndarray, src: np.ndarray, out: np.ndarray) -> None:
-    """``out[dest] = src`` (1-D or 2-D, ``dest`` without repeats), scattered in parallel: the inverse of
-    :func:`take_rows`, for assembling pieces into their places without joining them first."""
-    s2 = np.ascontiguousarray(src).reshape(len(src), -1)
-    if not out.flags.c_contiguous:
-        raise ValueError("put_rows needs a C-contiguous output")
-    _put_rows(np.ascontiguousarray(dest, dtype=np.int64), s2, out.reshape(len(out), -1))
-
-
-def group_order(keys: np.ndarray, n_keys: int, reverse: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+def group_order(keys: np.ndarray, n_keys: int) -> tuple[np.ndarray, np.ndarray]:
     """Permutation that groups ``keys`` (ints in ``[0, n_keys)``) in ascending order, keeping the original
-    order within a group (reversed for the keys flagged in ``reverse``), in linear time; and the size of
-    each group ``(n_keys,)``. The twin of ``numpy.argsort(keys, kind="stable")``."""
+    order within a group, in linear time; and the size of each group ``(n_keys,)``. The twin of
+    ``numpy.argsort(keys, kind="stable")``."""
     keys = np.ascontiguousarray(keys, dtype=np.int64)
-    rev = np.zeros(n_keys, np.bool_) if reverse is None else np.ascontiguousarray(reverse, dtype=np.bool_)
     start = np.empty(n_keys + 1, np.int64)
     order = np.empty(len(keys), np.int64)
-    _group_order(keys, rev, start, order)
+    _group_order(keys, start, order)
     return order, np.diff(start)
 
 

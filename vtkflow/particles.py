@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Callable, NamedTuple, Optional
 
 import numpy as np
 
-from .kernels import group_order, invert_order, put_rows
+from .kernels import group_order
 from .mesh import Mesh
 from .reuse import OutputPool
 
@@ -537,37 +537,36 @@ def trace_streamlines(
     record(first, start[first], np.zeros(len(first)), got.v[first])
     advance(state, length, frozen, step, record, integrator=integrator, tolerance=tolerance)
 
-    # per seed by signed arc length (backward part reversed, then forward): rows were recorded in arc
-    # order, so a counting sort on (seed, direction) with the backward groups reversed gives each record
-    # its place, and the pieces are put there without being joined first
-    idx = np.concatenate([c[0] for c in chunks])
-    if n_dir == 1:  # one part per seed: the row is the seed
-        order, _ = group_order(idx, L, np.full(L, signs[0] < 0))
-    else:
-        order, _ = group_order(idx % L * n_dir + idx // L, n_dir * L, np.tile(np.asarray(signs) < 0, L))
-    place_of = invert_order(order)
+    # per seed by signed arc length, backward part reversed, then forward: each engine call hands over
+    # each row's records as one run, in arc order, so every record's place follows from the rows' counts
+    # (one pass per call, straight into the outputs; no sort, no joined copies)
+    from .integrate import place_records, record_runs
+
+    n_rows = len(sign)
+    runs = [record_runs(c[0], n_rows) for c in chunks]
+    total = np.sum([count for _, count in runs], axis=0) if runs else np.zeros(n_rows, np.int64)
+    per_part = total.reshape(n_dir, L)
+    lengths = per_part.sum(axis=0)
+    offset = np.zeros(L, np.int64)
+    np.cumsum(lengths[:-1], out=offset[1:])
+    base = (offset + np.cumsum(per_part, axis=0) - per_part).reshape(-1)  # the earlier parts of the seed first
+    seed_of = np.tile(np.asarray(seed_ids, dtype=np.int64), n_dir)
     # the outputs in memory of earlier frames that the caller has let go of (see vtkflow.reuse)
     pool = field.outputs
-    n = len(idx)
-    points, vel, arc = pool.empty("points", (n, 3)), pool.empty("velocity", (n, 3)), pool.empty("arc", n)
-    done = 0
-    for c_idx, c_x, c_s, c_v in chunks:
-        dest = place_of[done:done + len(c_idx)]
-        put_rows(dest, c_x, points)
-        put_rows(dest, c_s, arc)
-        put_rows(dest, c_v, vel)
-        done += len(c_idx)
-    del place_of
-    idx = idx[order]
-    seed = idx % L if n_dir > 1 else idx
-    if signs[0] < 0:  # the backward part's arc length is negative
-        arc[idx < L] *= -1.0
+    n = int(lengths.sum())
+    out = (pool.empty("points", (n, 3)), pool.empty("velocity", (n, 3)), pool.empty("arc", n),
+           pool.empty("seed", n, np.int64), pool.empty("status", n, np.int8))
+    before = np.zeros(n_rows, np.int64)
+    for c, (c_start, c_count) in zip(chunks, runs):
+        place_records(c, (c_start, c_count), before, base, total, sign, seed_of, state.status, out)
+        before += c_count
+    points, vel, arc, seed, status = out
     return StreamlineSet(
         points=points,
         velocity=vel,
         arc_length=arc,
-        seed=np.take(np.asarray(seed_ids, dtype=np.int64), seed, out=pool.empty("seed", n, np.int64), mode="clip"),
-        lengths=np.bincount(seed, minlength=L),
-        status=np.take(state.status, idx, out=pool.empty("status", n, np.int8), mode="clip"),
+        seed=seed,
+        lengths=lengths,
+        status=status,
         ends=state.status.reshape(n_dir, L).copy(),
     )
