@@ -181,27 +181,29 @@ def test_just_released_particles_are_located_before_they_are_ordered(cube):
 
 
 def test_records_are_placed_as_a_sort_by_seed_and_signed_arc_length():
-    """``record_runs`` + ``place_records`` (the streamline assembly) against its obvious twin: NumPy's
-    lexsort of all records by (seed, signed arc length), for calls that hand over each row's records as
-    one run in arc order, rows in any order, backward rows (sign -1) reversed before the forward ones."""
-    from vtkflow.integrate import place_records, record_runs
+    """``place_runs`` (the streamline assembly) against its obvious twin: NumPy's lexsort of all records by
+    (seed, signed arc length), for engine calls that hand over each particle's records as a run in arc
+    order (rows of the call in any order, any count up to the width), backward rows (sign -1) reversed and
+    before the forward ones."""
+    from vtkflow.integrate import place_runs
 
     rng = np.random.default_rng(3)
-    n_seeds = 50
+    n_seeds, width = 50, 6
     sign = np.repeat([-1.0, 1.0], n_seeds)
     n_rows = len(sign)
     done = np.zeros(n_rows, np.int64)
-    calls = []
+    calls, flat = [], []
     for _ in range(4):
         rows = rng.permutation(n_rows)[: rng.integers(1, n_rows)]
-        steps = rng.integers(0, 5, len(rows))
-        which = np.repeat(rows, steps)
-        k = np.concatenate([done[r] + np.arange(m) for r, m in zip(rows, steps)]).astype(float)
-        done[rows] += steps
-        t = 0.1 * (k + 1.0) + 0.01 * (np.arange(n_rows) % n_seeds)[which]  # increasing along each row
-        calls.append((which, rng.normal(size=(len(which), 3)), t, rng.normal(size=(len(which), 3))))
-    runs = [record_runs(c[0], n_rows) for c in calls]
-    total = np.sum([count for _, count in runs], axis=0)
+        counts = rng.integers(0, width + 1, len(rows))
+        x, v = rng.normal(size=(len(rows), width, 3)), rng.normal(size=(len(rows), width, 3))
+        t = 0.1 * (done[rows, None] + np.arange(width) + 1.0)  # increasing along each row
+        calls.append((rows, counts, x, t, v))
+        for i, r in enumerate(rows):
+            for k in range(counts[i]):
+                flat.append((r, x[i, k], t[i, k], v[i, k]))
+        done[rows] += counts
+    total = done
     per_part = total.reshape(2, n_seeds)
     offset = np.concatenate([[0], np.cumsum(per_part.sum(axis=0))[:-1]])
     base = (offset + np.cumsum(per_part, axis=0) - per_part).reshape(-1)
@@ -210,13 +212,14 @@ def test_records_are_placed_as_a_sort_by_seed_and_signed_arc_length():
     n = int(total.sum())
     out = (np.empty((n, 3)), np.empty((n, 3)), np.empty(n), np.empty(n, np.int64), np.empty(n, np.int8))
     before = np.zeros(n_rows, np.int64)
-    for c, r in zip(calls, runs):
-        place_records(c, r, before, base, total, sign, seed_of, status, out)
-        before += r[1]
+    for c in calls:
+        place_runs(c, before, base, total, sign, seed_of, status, out)
 
-    which, x, t, v = (np.concatenate(a) for a in zip(*calls))
+    which = np.array([f[0] for f in flat])
+    x, t, v = (np.array([f[j] for f in flat]) for j in (1, 2, 3))
     arc = t * sign[which]
     order = np.lexsort((arc, which % n_seeds))
+    np.testing.assert_array_equal(before, total)
     np.testing.assert_array_equal(out[0], x[order])
     np.testing.assert_array_equal(out[1], v[order])
     np.testing.assert_array_equal(out[2], arc[order])

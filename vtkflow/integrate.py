@@ -27,7 +27,7 @@ from numba import njit, prange
 from .kernels import _bary, _locate, _prefetch_exit
 from .particles import Status
 
-__all__ = ["advance_particles", "find_cells", "record_runs", "place_records", "RecordBuffers", "TABLEAUS"]
+__all__ = ["advance_particles", "find_cells", "place_runs", "RecordBuffers", "TABLEAUS"]
 
 # status values as plain ints for the kernels; OUTSIDE marks a sample outside the mesh
 ACTIVE, EXITED, STALLED, NAN = int(Status.active), int(Status.exited), int(Status.stalled), int(Status.nan)
@@ -362,48 +362,33 @@ def _compact(rec_x, rec_t, rec_v, counts, rows, first, which, x, t, v):
 
 
 @njit(cache=True, parallel=True)
-def _runs(which, start, count):
-    for j in prange(which.shape[0]):
-        if j == 0 or which[j] != which[j - 1]:
-            r = which[j]
-            k = j + 1
-            while k < which.shape[0] and which[k] == r:
-                k += 1
-            start[r] = j
-            count[r] = k - j
+def _place_runs(rows, counts, rec_x, rec_t, rec_v, before, base, total, sign, seed_of, status, points, vel, arc, seed,
+                stat):
+    for i in prange(rows.shape[0]):
+        r = rows[i]  # each row once per call: no two threads write the same places or the same before[r]
+        for k in range(counts[i]):
+            kk = before[r] + k  # the record's place in its row's whole path
+            d = base[r] + (total[r] - 1 - kk if sign[r] < 0.0 else kk)
+            for c in range(3):
+                points[d, c] = rec_x[i, k, c]
+                vel[d, c] = rec_v[i, k, c]
+            arc[d] = rec_t[i, k] * sign[r]
+            seed[d] = seed_of[r]
+            stat[d] = status[r]
+        before[r] += counts[i]
 
 
-def record_runs(which: np.ndarray, n_rows: int) -> tuple[np.ndarray, np.ndarray]:
-    """Where each row's records start in one call's records, and how many there are (0: none). The
-    engine hands each particle's records over as one run (see :func:`advance_particles`)."""
-    start, count = np.zeros(n_rows, np.int64), np.zeros(n_rows, np.int64)
-    _runs(np.ascontiguousarray(which, dtype=np.int64), start, count)
-    return start, count
-
-
-@njit(cache=True, parallel=True)
-def _place_records(which, x, t, v, start, before, base, total, sign, seed_of, status, points, vel, arc, seed, stat):
-    for j in prange(which.shape[0]):
-        r = which[j]
-        k = before[r] + j - start[r]  # the record's place in its row's whole path
-        d = base[r] + (total[r] - 1 - k if sign[r] < 0.0 else k)
-        for c in range(3):
-            points[d, c] = x[j, c]
-            vel[d, c] = v[j, c]
-        arc[d] = t[j] * sign[r]
-        seed[d] = seed_of[r]
-        stat[d] = status[r]
-
-
-def place_records(records, runs, before, base, total, sign, seed_of, status, out) -> None:
-    """Write one call's records (``records``: ``(which, x, t, v)``; ``runs``: :func:`record_runs` of them) to
-    their places in a path assembly ``out = (points, velocity, arc, seed, status)``: row ``r``'s ``k``-th record
-    overall (``before[r]`` in earlier calls) goes to ``base[r] + k``, or to ``base[r] + total[r] - 1 - k`` where
-    ``sign[r] < 0`` (the path reversed, its time negated); each place also gets the row's ``seed_of`` and
-    ``status``. One parallel pass: no sort, no joined copies."""
-    which, x, t, v = records
-    _place_records(np.ascontiguousarray(which, dtype=np.int64), x, t, v, runs[0], before, base, total, sign, seed_of,
-                   status, *out)
+def place_runs(runs, before, base, total, sign, seed_of, status, out) -> None:
+    """Write one engine call's records, as :func:`advance_particles` hands them over uncompacted (``runs``:
+    ``(rows, counts, x, t, v)``, row ``i`` of the buffers holding particle ``rows[i]``'s ``counts[i]`` records
+    in time order), to their places in a path assembly ``out = (points, velocity, arc, seed, status)``:
+    particle ``r``'s ``k``-th record overall (``before[r]`` in earlier calls, advanced here) goes to
+    ``base[r] + k``, or to ``base[r] + total[r] - 1 - k`` where ``sign[r] < 0`` (the path reversed, its time
+    negated); each place also gets the particle's ``seed_of`` and ``status``. One parallel pass over the
+    particles, each copying a run: no sort, no compaction, no joined copies."""
+    rows, counts, x, t, v = runs
+    _place_runs(np.ascontiguousarray(rows, dtype=np.int64), np.ascontiguousarray(counts, dtype=np.int64), x, t, v,
+                before, base, total, sign, seed_of, status, *out)
 
 
 class RecordBuffers:
@@ -414,37 +399,46 @@ class RecordBuffers:
 
     def __init__(self, width: int) -> None:
         self.width = int(width)
-        self._x = self._t = self._v = np.empty(0)
+        self._slots: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
 
-    def take(self, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def take(self, n: int, slot: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Buffers for ``n`` particles in ``slot`` (each slot its own memory, kept for later calls)."""
         w = self.width
-        if self._t.size < w * n:
-            self._x, self._t, self._v = np.empty(w * n * 3), np.empty(w * n), np.empty(w * n * 3)
+        while len(self._slots) <= slot:
+            self._slots.append((np.empty(0), np.empty(0), np.empty(0)))
+        x, t, v = self._slots[slot]
+        if t.size < w * n:
+            x, t, v = self._slots[slot] = np.empty(w * n * 3), np.empty(w * n), np.empty(w * n * 3)
         # contiguous views of the first w * n entries: one compiled layout whatever n
-        return self._x[: w * n * 3].reshape(n, w, 3), self._t[: w * n].reshape(n, w), self._v[: w * n * 3].reshape(n, w, 3)
+        return x[: w * n * 3].reshape(n, w, 3), t[: w * n].reshape(n, w), v[: w * n * 3].reshape(n, w, 3)
 
 
 _NO_RECORDS = np.empty((0, 0, 3)), np.empty((0, 0)), np.empty((0, 0, 3))  # nothing recorded
 
 
 def advance_particles(rows, x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params,
-                      integrator="rk4", buffers=None):
+                      integrator="rk4", buffers=None, slot=None):
     """Advance particles ``rows`` of the state arrays (``x``, ``t``, ``v``, ``h``, ``cell``, ``status``, ``dt``,
     ``signs``: one row per particle, updated in place, no copies) by up to ``max_steps`` steps.
 
     ``dt`` holds each particle's suggested next step for the adaptive scheme.
     With ``buffers`` (a :class:`RecordBuffers` of width ``max_steps``) every accepted step is recorded;
     returns ``(which, x, t, v)``: the records, flat, particle by particle, each particle's in time order
-    (``which``: their rows of the state arrays). Without, returns ``None``.
+    (``which``: their rows of the state arrays), arrays of the caller's own. With a ``slot`` as well, the
+    records stay where the engine wrote them, in that slot of the buffers: returns ``(rows, counts, x, t,
+    v)``, the ``counts[i]`` records of particle ``rows[i]`` in row ``i`` of ``x`` ``(n, max_steps, 3)``, ``t``
+    and ``v`` (views, valid until the slot is taken again). Without buffers, returns ``None``.
     """
     rows = np.ascontiguousarray(rows, dtype=np.int64)
     n = len(rows)
-    rec = _NO_RECORDS if buffers is None else buffers.take(n)
+    rec = _NO_RECORDS if buffers is None else buffers.take(n, slot or 0)
     counts = np.zeros(n, np.int64)
     _advance_many(rows, x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh, field,
                   params, TABLEAUS[integrator], *rec, counts)
     if buffers is None:
         return None
+    if slot is not None:
+        return (rows, counts, *rec)
     first = np.zeros(n + 1, np.int64)
     np.cumsum(counts, out=first[1:])
     total = int(first[-1])

@@ -297,6 +297,7 @@ def advance(
     max_iterations: int = MAX_ITERATIONS,
     integrator: str = "rk4",
     tolerance: Optional[float] = None,
+    runs: bool = False,
 ) -> None:
     """Advance every active particle whose time is below ``t_end`` to ``t_end`` with classical RK4.
 
@@ -307,10 +308,17 @@ def advance(
     ``integrator="dopri5"`` (numba engine only) uses the adaptive Dormand–Prince 5(4) pair (Dormand &
     Prince 1980, J. Comput. Appl. Math. 6) with its local error per step kept below ``tolerance`` (length
     units; default ``DEFAULT_RTOL`` of the local cell size), the steps still bounded by ``step`` cells.
+
+    ``runs=True`` (numba engine only) hands ``record`` each engine call's records where the engine wrote them,
+    ``record(rows, counts, x, t, v)`` (see :func:`vtkflow.integrate.advance_particles`), each call in its own
+    slot of the field's record buffers: valid until the field's next ``advance``, and not copied.
     """
-    if integrator != "rk4" and (engine == "numpy" or not hasattr(field, "kernel_args")):
+    numba_engine = engine != "numpy" and hasattr(field, "kernel_args")
+    if integrator != "rk4" and not numba_engine:
         raise ValueError(f"integrator {integrator!r} needs the numba engine")
-    if engine == "numpy" or not hasattr(field, "kernel_args"):
+    if runs and not numba_engine:
+        raise ValueError("records handed over as runs need the numba engine")
+    if not numba_engine:
         advance_numpy(state, t_end, field, step, record, max_iterations)
         return
     from .integrate import advance_particles, find_cells
@@ -323,7 +331,7 @@ def advance(
     # memory costs page faults); without: no buffers, no chunks
     buffers = field.record_buffers() if record is not None else None
     chunk = CHUNK_STEPS if record is not None else 1 << 40
-    for _ in range(max_iterations):
+    for call in range(max_iterations):
         active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
         if active.size == 0:
             return
@@ -333,7 +341,8 @@ def advance(
         active = active[_by_region(state.cell[active], len(mesh[0]))]
         # the engine works on the state's own arrays, row by row
         got = advance_particles(active, state.x, state.t, state.v, state.h, state.cell, state.status, state.dt,
-                                signs, t_end, step, chunk, mesh, args, params, integrator, buffers)
+                                signs, t_end, step, chunk, mesh, args, params, integrator, buffers,
+                                call if runs else None)
         if got is not None and got[0].size:
             record(*got)
     raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} rounds")
@@ -524,27 +533,26 @@ def trace_streamlines(
     frozen = FrozenField(field, time, sign, STALL_SPEED * float(np.nanmax(speed0, initial=0.0)))
     got = Sample(*(None if a is None else np.concatenate([a] * n_dir) for a in at_seeds))
 
-    chunks: list[tuple[np.ndarray, ...]] = []
-
-    def record(idx: np.ndarray, x: np.ndarray, s: np.ndarray, v: np.ndarray) -> None:
-        chunks.append((idx, x, s, v))  # the engines hand over arrays of their own
-
+    # each engine call's records as the engine left them (see advance(runs=True)): per particle, a run in
+    # arc order; the first "call" is the seed vertex, once per seed (with the forward part when both), the
+    # velocity itself (not the unit tangent the engine integrates)
+    calls: list[tuple[np.ndarray, ...]] = []
     state = State.empty(len(sign))
     place(state, rows, start, np.zeros(len(sign)), frozen, frozen.tangent(got, rows))
-    # the seed vertex, once per seed (with the forward part when both); the numba engine records the
-    # velocity itself (not the unit tangent it integrates)
     first = rows[sign > 0] if direction == "both" else rows
-    record(first, start[first], np.zeros(len(first)), got.v[first])
-    advance(state, length, frozen, step, record, integrator=integrator, tolerance=tolerance)
+    calls.append((first, np.ones(len(first), np.int64), start[first].reshape(-1, 1, 3), np.zeros((len(first), 1)),
+                  got.v[first].reshape(-1, 1, 3)))
+    advance(state, length, frozen, step, lambda *c: calls.append(c), integrator=integrator, tolerance=tolerance,
+            runs=True)
 
-    # per seed by signed arc length, backward part reversed, then forward: each engine call hands over
-    # each row's records as one run, in arc order, so every record's place follows from the rows' counts
-    # (one pass per call, straight into the outputs; no sort, no joined copies)
-    from .integrate import place_records, record_runs
+    # per seed by signed arc length, backward part reversed, then forward: every record's place follows from
+    # the particles' counts (one parallel pass per call, straight into the outputs; no sort, no copies)
+    from .integrate import place_runs
 
     n_rows = len(sign)
-    runs = [record_runs(c[0], n_rows) for c in chunks]
-    total = np.sum([count for _, count in runs], axis=0) if runs else np.zeros(n_rows, np.int64)
+    total = np.zeros(n_rows, np.int64)
+    for c in calls:
+        total[c[0]] += c[1]  # each particle once per call
     per_part = total.reshape(n_dir, L)
     lengths = per_part.sum(axis=0)
     offset = np.zeros(L, np.int64)
@@ -557,9 +565,8 @@ def trace_streamlines(
     out = (pool.empty("points", (n, 3)), pool.empty("velocity", (n, 3)), pool.empty("arc", n),
            pool.empty("seed", n, np.int64), pool.empty("status", n, np.int8))
     before = np.zeros(n_rows, np.int64)
-    for c, (c_start, c_count) in zip(chunks, runs):
-        place_records(c, (c_start, c_count), before, base, total, sign, seed_of, state.status, out)
-        before += c_count
+    for c in calls:
+        place_runs(c, before, base, total, sign, seed_of, state.status, out)
     points, vel, arc, seed, status = out
     return StreamlineSet(
         points=points,
