@@ -315,6 +315,22 @@ def test_take_rows_is_fancy_indexing():
         assert got.dtype == ref.dtype and np.array_equal(got, ref)
 
 
+def test_put_columns_is_slice_assignment():
+    """``put_columns`` equals NumPy's ``table[:, col:col + k] = src`` (its twin) for 1-D and 2-D sources, and
+    refuses a source that does not fit."""
+    from vtkflow.kernels import put_columns
+
+    rng = np.random.default_rng(12)
+    table, ref = np.full((500, 7), np.nan), np.full((500, 7), np.nan)
+    a, b = rng.normal(size=(500, 3)), rng.normal(size=500)
+    put_columns(table, 3, a)
+    put_columns(table, 6, b)
+    ref[:, 3:6], ref[:, 6] = a, b
+    np.testing.assert_array_equal(table, ref)
+    with pytest.raises(ValueError, match="cannot put"):
+        put_columns(table, 5, a)
+
+
 def test_bounds_and_morton_bits():
     """``kernels.bounds`` equals NumPy's per-axis min and max (its twin); ``morton_bits`` takes whole octree
     levels, about one level short of one item per cell."""

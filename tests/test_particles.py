@@ -256,6 +256,27 @@ def test_streamline_outputs_kept_by_the_caller_are_never_overwritten(cube):
     assert f.outputs.free("velocity")  # b's velocity buffer was dropped: free for the next frame
 
 
+def test_snapshot_loads_reuse_memory_but_never_a_table_still_held(cube):
+    """``TimeField.load`` writes each snapshot pair into memory of an earlier load that nothing refers to
+    (two tables take turns), never into a table that a caller still holds."""
+    f = uniform_field(cube, (1.0, 0.0, 0.0))
+    held = cube.values
+    kept = held.copy()
+    for k in range(4):
+        u = np.full((cube.n_points, 3), float(k + 2))
+        f.load(k, u, k + 1, 2 * u)
+        np.testing.assert_array_equal(cube.values[:, :3], u)
+        np.testing.assert_array_equal(cube.values[:, 3:6], 2 * u)
+        np.testing.assert_array_equal(cube.values[:, 6], cube.point_size)
+    np.testing.assert_array_equal(held, kept)  # the table held since the first load is untouched
+    f.load(9, u, 10, u)
+    assert not np.shares_memory(cube.values, held)
+    a = cube.values.__array_interface__["data"][0]
+    f.load(10, u, 11, u)
+    f.load(11, u, 12, u)
+    assert cube.values.__array_interface__["data"][0] == a  # memory reused once let go
+
+
 def test_output_pool_lends_a_buffer_only_when_nothing_made_from_it_is_alive():
     from vtkflow._vtk import numpy_to_vtk, vtk_to_numpy
     from vtkflow.reuse import OutputPool

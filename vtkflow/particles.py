@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Callable, NamedTuple, Optional
 
 import numpy as np
 
-from .kernels import group_order
+from .kernels import group_order, put_columns
 from .mesh import Mesh
 from .reuse import OutputPool
 
@@ -132,7 +132,13 @@ class TimeField:
         self.t0, self.t1 = float(t0), float(t1)
         self.cubic = d0 is not None and d1 is not None
         cols = [u0, u1, d0, d1] if self.cubic else [u0, u1]
-        self.mesh.set_point_data(np.hstack([*cols, self.mesh.point_size[:, None]]))
+        # into memory of an earlier load that nothing refers to any more (the mesh keeps the last one: two
+        # buffers take turns), not fresh memory at every snapshot pair
+        table = self.outputs.empty("snapshots", (self.mesh.n_points, 3 * len(cols) + 1))
+        for j, u in enumerate(cols):
+            put_columns(table, 3 * j, u)
+        put_columns(table, 3 * len(cols), self.mesh.point_size)
+        self.mesh.set_point_data(table)
 
     def kernel_args(self, time: Optional[float] = None, floor: float = 0.0) -> tuple:
         """The plain arrays the numba engine needs: ``(mesh tuple, field tuple)``; with ``time``, the
