@@ -127,6 +127,21 @@ def test_streamline_stops_at_stagnation_and_at_length(cube):
     assert lines.ends[0, 0] == Status.active
 
 
+def test_largest_speed_is_that_of_the_blended_field_at_the_points(cube):
+    """``TimeField.largest_speed`` (the streamline stall floor's scale) against its NumPy twin: the largest
+    norm of ``(1 - a) u0 + a u1`` over the points, NaN rows passed over."""
+    rng = np.random.default_rng(8)
+    u0, u1 = rng.normal(size=(cube.n_points, 3)), rng.normal(size=(cube.n_points, 3))
+    u0[5] = np.nan
+    f = TimeField(cube)
+    f.load(1.0, u0, 3.0, u1)
+    for t in (1.5, 2.0, 2.75):
+        a = (t - 1.0) / 2.0
+        want = np.nanmax(np.linalg.norm((1 - a) * u0 + a * u1, axis=1))
+        assert f.largest_speed(t) == pytest.approx(want, rel=1e-14)
+    assert f.largest_speed(1.0) == pytest.approx(np.nanmax(np.linalg.norm(u0, axis=1)), rel=1e-14)
+
+
 def test_python_api_traces_with_the_recipe_names(tmp_path):
     """vtkflow.trace gives the same frames as a recipe entry with the same keys (oscillating uniform flow;
     identical computation, so identical points)."""

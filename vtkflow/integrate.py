@@ -24,10 +24,10 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from .kernels import _bary, _locate, _prefetch_exit
+from .kernels import FMA, _bary, _locate, _prefetch_exit
 from .particles import Status
 
-__all__ = ["advance_particles", "find_cells", "place_runs", "RecordBuffers", "TABLEAUS"]
+__all__ = ["advance_particles", "find_cells", "place_runs", "largest_speed", "RecordBuffers", "TABLEAUS"]
 
 # status values as plain ints for the kernels; OUTSIDE marks a sample outside the mesh
 ACTIVE, EXITED, STALLED, NAN = int(Status.active), int(Status.exited), int(Status.stalled), int(Status.nan)
@@ -36,7 +36,7 @@ OUTSIDE = -1
 MAX_RAY = 100_000
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=True, fastmath=FMA, nogil=True, inline="always")
 def _sample(x0, x1, x2, t, hint, mesh, field, sign, need_h=True):
     """Velocity at ``((x0, x1, x2), t)``: ``(tetrahedron or -1, local cell size, stop code, speed, u0, u1, u2)``,
     the speed that of the velocity itself (in frozen mode ``u`` is its unit tangent). The cell size is
@@ -91,7 +91,7 @@ def _sample(x0, x1, x2, t, hint, mesh, field, sign, need_h=True):
     return cell, h, ACTIVE, speed, w0, w1, w2
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, fastmath=FMA, nogil=True)
 def _ray_exit(x0, x1, x2, d0, d1, d2, cell, geom, nbr):
     """Distance along the unit direction ``d`` from ``x`` (in tetrahedron ``cell``) to the boundary, by
     traversing tetrahedra along the ray; -1.0 if no boundary face is met within MAX_RAY tetrahedra."""
@@ -149,7 +149,7 @@ DP_E = np.array([
 TABLEAUS = {"rk4": (RK4_C, RK4_A, RK4_B, RK4_E, False), "dopri5": (DP_C, DP_A, DP_B, DP_E, True)}
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=True, fastmath=FMA, nogil=True, inline="always")
 def _record(i, n, x0, x1, x2, t, v0, v1, v2, rec_x, rec_t, rec_v):
     """Record particle ``i``'s ``n``-th step."""
     rec_x[i, n, 0], rec_x[i, n, 1], rec_x[i, n, 2] = x0, x1, x2
@@ -161,7 +161,7 @@ def _record(i, n, x0, x1, x2, t, v0, v1, v2, rec_x, rec_t, rec_v):
 BLOCK = 64
 
 
-@njit(cache=True, nogil=True, _nrt=False)
+@njit(cache=True, fastmath=FMA, nogil=True, _nrt=False)
 def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, params, scheme, rec_x, rec_t,
                  rec_v, k, cells, codes):
     """Advance particle ``i`` (a row of the state arrays, updated in place) by up to ``max_steps`` accepted
@@ -329,7 +329,7 @@ def _advance_many(rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh
                                      scheme, rec_x, rec_t, rec_v, k, cells, codes)
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, fastmath=FMA, parallel=True)
 def _find_cells(rows, X, C, mesh):
     geom, nbr, conn, origin, spacing, dims, first, items = mesh
     for j in prange(rows.shape[0]):
@@ -343,6 +343,27 @@ def find_cells(rows, x, cell, mesh) -> None:
     containing them, through the bin grid, as the engine itself would on their first step (-1 outside):
     with it, they can be ordered by region before their first step."""
     _find_cells(np.ascontiguousarray(rows, dtype=np.int64), x, cell, mesh)
+
+
+@njit(cache=True, parallel=True)
+def _speeds(values, weights, out):
+    for i in prange(values.shape[0]):
+        u0 = u1 = u2 = 0.0
+        for j in range(weights.shape[0]):
+            if weights[j] != 0.0:  # a snapshot (or slope) of zero weight takes no part, not even through 0 * NaN
+                u0 += weights[j] * values[i, 3 * j]
+                u1 += weights[j] * values[i, 3 * j + 1]
+                u2 += weights[j] * values[i, 3 * j + 2]
+        out[i] = np.sqrt(u0 * u0 + u1 * u1 + u2 * u2)
+
+
+def largest_speed(values: np.ndarray, weights: np.ndarray) -> float:
+    """The largest speed at the points of a snapshot table (``values``: the engine's, see
+    :meth:`vtkflow.particles.TimeField.load`) with these weights of its column triples; NaN speeds are
+    passed over (0.0 when every speed is NaN)."""
+    out = np.empty(len(values))
+    _speeds(values, np.ascontiguousarray(weights, dtype=np.float64), out)
+    return float(np.nanmax(out, initial=0.0)) if np.isfinite(out).any() else 0.0
 
 
 @njit(cache=True, parallel=True)

@@ -50,7 +50,8 @@ __all__ = [
 MIN_STEP = 1e-3
 #: Bisection steps of the NumPy twin's boundary exit (precision: one cell / 2**BISECTIONS).
 BISECTIONS = 40
-#: Streamlines stop where the speed falls below this fraction of the largest speed at their seeds.
+#: Streamlines stop where the speed falls below this fraction of the largest speed of the field (at the mesh
+#: points, at the streamlines' time): a stagnation point stops them, whatever round-off leaves there.
 STALL_SPEED = 1e-6
 #: The adaptive scheme's default local error per step, as a fraction of the local cell size.
 DEFAULT_RTOL = 1e-3
@@ -149,6 +150,13 @@ class TimeField:
         frozen = time is not None
         field = (self.mesh.values, self.t0, self.t1, frozen, float(time or 0.0), float(floor), self.cubic)
         return mesh, field
+
+    def largest_speed(self, time: float) -> float:
+        """The largest speed at the mesh points at ``time`` (NaN speeds passed over)."""
+        from .integrate import largest_speed
+
+        w = self.weights(np.array([float(time)]))[0][: 4 if self.cubic else 2]
+        return largest_speed(self.mesh.values, w)
 
     def weight(self, t: np.ndarray) -> np.ndarray:
         """Interpolation weight ``a`` of the later snapshot at times ``t`` (linear interpolation)."""
@@ -535,8 +543,7 @@ def trace_streamlines(
     start = np.tile(seeds, (n_dir, 1))
     rows = np.arange(len(sign))
     at_seeds = FrozenField(field, time, sign, 0.0).velocity(seeds)  # sampled once, for every direction
-    speed0 = np.linalg.norm(at_seeds.v, axis=1)
-    frozen = FrozenField(field, time, sign, STALL_SPEED * float(np.nanmax(speed0, initial=0.0)))
+    frozen = FrozenField(field, time, sign, STALL_SPEED * field.largest_speed(time))
     got = Sample(*(None if a is None else np.concatenate([a] * n_dir) for a in at_seeds))
 
     # each engine call's records as the engine left them (see advance(runs=True)): per particle, a run in
