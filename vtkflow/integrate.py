@@ -22,7 +22,7 @@ until every particle is done. The particles of a call are rows of the state arra
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange, types
+from numba import get_num_threads, njit, prange, types
 from numba.extending import overload
 
 from .kernels import FMA, _bary, _locate, _prefetch_exit
@@ -333,11 +333,19 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
 
 @njit(cache=True, parallel=True)
 def _advance_many(rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, field, frozen, cubic, params, scheme,
-                  rec_x, rec_t, rec_v, counts):
+                  rec_x, rec_t, rec_v, counts, nt):
     ns = scheme[2].shape[0]
     n = rows.shape[0]
     blocks = (n + BLOCK - 1) // BLOCK
-    for b in prange(blocks):
+    # the loop hands each of the ``nt`` threads a contiguous run of iterations: iteration q takes block
+    # (q % m) * nt + q // m, so that every thread's blocks spread over all the particles (ordered by region,
+    # the work per block follows the local speed: contiguous halves differed by up to 13 % on the transient
+    # benchmark); any order gives the same results, each particle being advanced on its own
+    m = (blocks + nt - 1) // nt
+    for q in prange(m * nt):
+        b = (q % m) * nt + q // m
+        if b >= blocks:
+            continue
         k, cells, codes = np.empty((ns, 3)), np.empty(ns, np.int64), np.empty(ns, np.int64)
         for j in range(b * BLOCK, min((b + 1) * BLOCK, n)):
             i = rows[j]
@@ -474,7 +482,7 @@ def advance_particles(rows, x, t, v, h, cell, status, dt, signs, t_end, step, ma
     _advance_many(rows, x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh,
                   (values, float(t0), float(t1), float(time), float(floor)), ON if frozen else OFF,
                   ON if cubic else OFF, params,
-                  TABLEAUS[integrator], *rec, counts)
+                  TABLEAUS[integrator], *rec, counts, get_num_threads())
     if buffers is None:
         return None
     if slot is not None:
