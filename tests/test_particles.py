@@ -142,6 +142,25 @@ def test_largest_speed_is_that_of_the_blended_field_at_the_points(cube):
     assert f.largest_speed(1.0) == pytest.approx(np.nanmax(np.linalg.norm(u0, axis=1)), rel=1e-14)
 
 
+def test_record_chunks_follow_the_steps_particles_take():
+    """The record buffers suggest chunks of the smallest power of two at least twice the recent mean steps
+    per particle (at least 4, at most the width), and the full width after a call that mostly filled it."""
+    from vtkflow.integrate import RecordBuffers
+
+    b = RecordBuffers(64)
+    assert b.chunk() == 64  # nothing known yet
+    b.note(np.array([3, 3, 4, 2]), 64)
+    assert b.chunk() == 8
+    b.note(np.array([0, 1, 0, 1]), 8)
+    assert b.chunk() == 4
+    b.note(np.array([4, 4, 3, 4]), 4)  # mostly full: the whole width next
+    assert b.chunk() == 64
+    b.note(np.array([20, 17]), 64)
+    assert b.chunk() == 64
+    x, t, v = b.take(5, 0, 8)
+    assert x.shape == (5, 8, 3) and t.shape == (5, 8) and v.shape == (5, 8, 3)
+
+
 def test_python_api_traces_with_the_recipe_names(tmp_path):
     """vtkflow.trace gives the same frames as a recipe entry with the same keys (oscillating uniform flow;
     identical computation, so identical points)."""

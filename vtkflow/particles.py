@@ -55,7 +55,7 @@ BISECTIONS = 40
 STALL_SPEED = 1e-6
 #: The adaptive scheme's default local error per step, as a fraction of the local cell size.
 DEFAULT_RTOL = 1e-3
-#: Accepted steps per particle per call of the numba engine (its record buffers are this long).
+#: Most accepted steps per particle per call of the numba engine (its record buffers are this wide).
 CHUNK_STEPS = 64
 #: A step is redone when the speed met along it exceeds the one it was sized for by this factor.
 MAX_GROWTH = 2.0
@@ -341,10 +341,10 @@ def advance(
     sign = getattr(field, "sign", None)
     signs = np.ones(len(state.t)) if sign is None else np.ascontiguousarray(sign, dtype=np.float64)
     params = (MIN_STEP, MAX_GROWTH, float(tolerance or 0.0), DEFAULT_RTOL)
-    # with a recorder: chunks of CHUNK_STEPS steps into the field's buffers, reused from call to call (fresh
-    # memory costs page faults); without: no buffers, no chunks
+    # with a recorder: chunks of up to CHUNK_STEPS steps into the field's buffers, reused from call to call
+    # (fresh memory costs page faults), as wide as the steps particles took lately (runs: the full width,
+    # each call in its own slot); without: no buffers, no chunks
     buffers = field.record_buffers() if record is not None else None
-    chunk = CHUNK_STEPS if record is not None else 1 << 40
     for call in range(max_iterations):
         active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
         if active.size == 0:
@@ -355,11 +355,18 @@ def advance(
         active = active[_by_region(state.cell[active], len(mesh[0]))]
         # the engine works on the state's own arrays, row by row
         got = advance_particles(active, state.x, state.t, state.v, state.h, state.cell, state.status, state.dt,
-                                signs, t_end, step, chunk, mesh, args, params, integrator, buffers,
+                                signs, t_end, step, _chunk(buffers, runs), mesh, args, params, integrator, buffers,
                                 call if runs else None)
         if got is not None and got[0].size:
             record(*got)
     raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} rounds")
+
+
+def _chunk(buffers: Optional[RecordBuffers], runs: bool) -> int:
+    """Most steps per particle in the next engine call (see :meth:`RecordBuffers.chunk`)."""
+    if buffers is None:
+        return 1 << 40
+    return buffers.width if runs else buffers.chunk()
 
 
 def _by_region(cells: np.ndarray, n_tets: int) -> np.ndarray:
