@@ -279,6 +279,16 @@ def test_group_order_matches_stable_argsort():
     np.testing.assert_array_equal(sizes, np.bincount(keys, minlength=60))
 
 
+def test_shifted_order_matches_stable_argsort_of_the_shifted_keys():
+    """``shifted_order`` equals NumPy's stable argsort (its twin) of ``(v >> shift) + 1``, -1 keyed 0."""
+    from vtkflow.kernels import shifted_order
+
+    v = np.random.default_rng(8).integers(-1, 10_000, 3000)
+    for shift in (0, 3, 7):
+        keys = np.where(v >= 0, (v >> shift) + 1, 0)
+        np.testing.assert_array_equal(shifted_order(v, shift, 9_999), np.argsort(keys, kind="stable"))
+
+
 def test_orientation_and_morton_order_match_numpy_twin():
     """The numba orientation fix and Morton numbering (codes, counting sort, one gather) equal their NumPy
     twin (cross-product volumes, stable argsort of the same leading bits), on a box mesh with half of its

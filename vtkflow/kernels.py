@@ -22,7 +22,7 @@ from numba.extending import intrinsic
 from .errors import InputError
 from .tetmesh import PER_BIN, BinGrid, TetMesh, grid_shape
 
-__all__ = ["Locator", "group_order", "take_rows", "put_columns", "bounds", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK", "FMA"]
+__all__ = ["Locator", "group_order", "shifted_order", "take_rows", "put_columns", "bounds", "orient_and_order", "build_bins", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK", "FMA"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -521,6 +521,30 @@ def put_columns(table: np.ndarray, col: int, src: np.ndarray) -> None:
     if table.shape[0] != s2.shape[0] or not 0 <= col <= table.shape[1] - s2.shape[1]:
         raise ValueError(f"cannot put {s2.shape} into columns {col}.. of a {table.shape} table")
     _put_columns(table, int(col), s2)
+
+
+@njit(cache=True)
+def _shifted_order(values, shift, start, order):
+    start[:] = 0
+    for i in range(values.shape[0]):
+        k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
+        start[k + 1] += 1
+    for k in range(start.shape[0] - 1):
+        start[k + 1] += start[k]
+    for i in range(values.shape[0]):
+        k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
+        order[start[k]] = i
+        start[k] += 1
+
+
+def shifted_order(values: np.ndarray, shift: int, top: int) -> np.ndarray:
+    """:func:`group_order` of the keys ``(values >> shift) + 1``, negative values keyed 0 (first), for
+    integers in ``[-1, top]``: one pass to count and one to place, no key array."""
+    values = np.ascontiguousarray(values)
+    start = np.empty((int(top) >> int(shift)) + 3, np.int64)
+    order = np.empty(len(values), np.int64)
+    _shifted_order(values, np.int64(shift), start, order)
+    return order
 
 
 def group_order(keys: np.ndarray, n_keys: int) -> tuple[np.ndarray, np.ndarray]:

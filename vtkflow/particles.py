@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Callable, NamedTuple, Optional
 
 import numpy as np
 
-from .kernels import group_order, put_columns
+from .kernels import put_columns, shifted_order
 from .mesh import Mesh
 from .reuse import OutputPool
 
@@ -374,8 +374,7 @@ def _by_region(cells: np.ndarray, n_tets: int) -> np.ndarray:
     curve, so ``cell >> shift`` is a region of space, about one per particle (a linear-time counting
     sort; particles outside the mesh, ``cell = -1``, come first)."""
     shift = max(0, int(n_tets).bit_length() - int(len(cells)).bit_length())
-    keys = np.where(cells >= 0, (cells >> shift) + 1, 0)
-    return group_order(keys, (int(n_tets) >> shift) + 2)[0]
+    return shifted_order(cells, shift, n_tets)
 
 
 def advance_numpy(
