@@ -504,10 +504,10 @@ def advance_particles(rows, x, t, v, h, cell, status, dt, signs, t_end, step, ma
     rec = _NO_RECORDS if buffers is None else buffers.take(n, slot or 0, max_steps)
     counts = np.zeros(n, np.int64)
     values, t0, t1, frozen, time, floor, cubic = field
-    _advance_many(rows, x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh,
-                  (values, float(t0), float(t1), float(time), float(floor)), ON if frozen else OFF,
-                  ON if cubic else OFF, params,
-                  TABLEAUS[integrator], *rec, counts, get_num_threads())
+    values_at = (values, float(t0), float(t1), float(time), float(floor))
+    _advance_many(rows, x, t, v, h, cell, status, dt, signs, float(t_end), float(step), int(max_steps), mesh, values_at,
+                  ON if frozen else OFF, ON if cubic else OFF, params, TABLEAUS[integrator], *rec, counts,
+                  get_num_threads())
     if buffers is None:
         return None
     buffers.note(counts, max_steps)

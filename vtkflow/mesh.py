@@ -146,10 +146,16 @@ class Mesh:
         values : (N, k) ndarray of float64 (zeros where not found)
         inside : (N,) ndarray of bool, False for points outside the mesh
         """
+        values, tets = self.sample_cells(points, hints)
+        return values, tets >= 0
+
+    def sample_cells(self, points: np.ndarray, hints: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """:meth:`sample` with the tetrahedron of the decomposition found at each point (-1 outside) in place
+        of the inside mask."""
         if self._values is None:
             raise RuntimeError("Mesh.sample needs set_point_data first")
         tets, bary = self.locator.locate(points, hints)
-        return self.locator.interpolate(tets, bary, self._values), tets >= 0
+        return self.locator.interpolate(tets, bary, self._values), tets
 
     def locate(self, points: np.ndarray, hints: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Containing tetrahedron of the decomposition (-1 outside) and barycentric coordinates."""

@@ -173,8 +173,7 @@ class TimeField:
         return np.stack([(1 + 2 * a) * (1 - a) ** 2, a * a * (3 - 2 * a), a * (1 - a) ** 2 * dt, -a * a * (1 - a) * dt], axis=1)
 
     def __call__(self, x: np.ndarray, t: np.ndarray, idx: Optional[np.ndarray] = None) -> Sample:
-        cell, bary = self.mesh.locate(x)
-        values = self.mesh.locator.interpolate(cell, bary, self.mesh.values)
+        values, cell = self.mesh.sample_cells(x)
         inside = cell >= 0
         w = self.weights(t)
         v = np.zeros((len(x), 3))
