@@ -226,7 +226,7 @@ def main() -> None:
     ap.add_argument("--sample", type=int, default=None, help="particles checked against solve_ivp; default 200, quick 30")
     ap.add_argument("--step", type=float, default=0.25, help="vtkflow's RK4 step in cells")
     ap.add_argument("--timeout", type=float, default=None, help="seconds per VTK configuration; default 240, quick 60")
-    ap.add_argument("--repeat", type=int, default=2, help="runs per side; the fastest counts (default 2)")
+    ap.add_argument("--repeat", type=int, default=3, help="runs per side; the fastest counts (default 3)")
     ap.add_argument("--vtk-worker", default=None, help=argparse.SUPPRESS)
     ap.add_argument("--out", default=None, help=argparse.SUPPRESS)
     args = ap.parse_args()

@@ -450,6 +450,8 @@ class RecordBuffers:
 
     #: The narrowest chunk :meth:`chunk` suggests.
     NARROWEST = 4
+    #: Chunks are at least this many times the recent mean steps per particle.
+    MARGIN = 2.0
 
     def __init__(self, width: int) -> None:
         self.width = int(width)
@@ -457,10 +459,10 @@ class RecordBuffers:
         self._recent = float(width)  # mean steps per particle of the last call
 
     def chunk(self) -> int:
-        """Steps per particle for the next call: the smallest power of two at least twice the recent mean
-        (so that most particles finish in one call), between :data:`NARROWEST` and ``width``."""
+        """Steps per particle for the next call: the smallest power of two at least :data:`MARGIN` times the
+        recent mean (so that most particles finish in one call), between :data:`NARROWEST` and ``width``."""
         w = self.NARROWEST
-        while w < 2.0 * self._recent and w < self.width:
+        while w < self.MARGIN * self._recent and w < self.width:
             w *= 2
         return min(w, self.width)
 
