@@ -83,7 +83,7 @@ class _History:
         self.v = np.zeros((0, 3))
 
     def __call__(self, idx: np.ndarray, x: np.ndarray, t: np.ndarray, v: np.ndarray) -> None:
-        self._chunks.append((idx.astype(np.int64), x, t, v))  # the engines hand over arrays of their own
+        self._chunks.append((idx.astype(np.int64, copy=False), x, t, v))  # the engines hand over arrays of their own
 
     def consolidate(self) -> None:
         if self._chunks:
