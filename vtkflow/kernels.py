@@ -474,17 +474,18 @@ def orient_and_order(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, 
 
 
 @njit(cache=True)
-def _group_order(keys, start, order):
-    """Stable counting sort of ``keys`` (ints in ``[0, len(start) - 1)``) into ``order``; ``start``
-    (n_keys + 1) receives the group bounds."""
+def _group_order(values, shift, start, order):
+    """Stable counting sort of ``values`` by the key ``(v >> shift) + 1`` (0 for negative values) into
+    ``order``; ``start`` (n_keys + 1) receives the group bounds."""
     start[:] = 0
-    for i in range(keys.shape[0]):
-        start[keys[i] + 1] += 1
+    for i in range(values.shape[0]):
+        k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
+        start[k + 1] += 1
     for k in range(start.shape[0] - 1):
         start[k + 1] += start[k]
     seen = np.zeros(start.shape[0] - 1, np.int64)
-    for i in range(keys.shape[0]):
-        k = keys[i]
+    for i in range(values.shape[0]):
+        k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
         order[start[k] + seen[k]] = i
         seen[k] += 1
 
@@ -523,27 +524,13 @@ def put_columns(table: np.ndarray, col: int, src: np.ndarray) -> None:
     _put_columns(table, int(col), s2)
 
 
-@njit(cache=True)
-def _shifted_order(values, shift, start, order):
-    start[:] = 0
-    for i in range(values.shape[0]):
-        k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
-        start[k + 1] += 1
-    for k in range(start.shape[0] - 1):
-        start[k + 1] += start[k]
-    for i in range(values.shape[0]):
-        k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
-        order[start[k]] = i
-        start[k] += 1
-
-
 def shifted_order(values: np.ndarray, shift: int, top: int) -> np.ndarray:
     """:func:`group_order` of the keys ``(values >> shift) + 1``, negative values keyed 0 (first), for
-    integers in ``[-1, top]``: one pass to count and one to place, no key array."""
+    integers in ``[-1, top]``: the keys are computed in the counting sort itself, no key array."""
     values = np.ascontiguousarray(values)
     start = np.empty((int(top) >> int(shift)) + 3, np.int64)
     order = np.empty(len(values), np.int64)
-    _shifted_order(values, np.int64(shift), start, order)
+    _group_order(values, np.int64(shift), start, order)
     return order
 
 
@@ -552,10 +539,10 @@ def group_order(keys: np.ndarray, n_keys: int) -> tuple[np.ndarray, np.ndarray]:
     order within a group, in linear time; and the size of each group ``(n_keys,)``. The twin of
     ``numpy.argsort(keys, kind="stable")``."""
     keys = np.ascontiguousarray(keys, dtype=np.int64)
-    start = np.empty(n_keys + 1, np.int64)
+    start = np.empty(n_keys + 2, np.int64)  # key k sorted as k + 1 (the sort's key 0 holds negative values)
     order = np.empty(len(keys), np.int64)
-    _group_order(keys, start, order)
-    return order, np.diff(start)
+    _group_order(keys, np.int64(0), start, order)
+    return order, np.diff(start[1:])
 
 
 @njit(cache=True, parallel=True)
