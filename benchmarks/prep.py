@@ -8,8 +8,9 @@ what a run does once per series — and its parts, each timed on its own:
 
 * VTK copy and arrays: the structure copy, points, offsets, connectivity, cell types (``Mesh.__init__``);
 * cell sizes: ``Mesh._cell_sizes`` (VTK's cell-size filter) and the smallest size per point;
-* ``tetmesh.decompose`` (conforming tetrahedra), ``kernels.neighbours``, ``kernels.build_bins``;
-* the inverse edge matrices of the point locator (``kernels.tet_inverses``).
+* ``tetmesh.decompose`` (conforming tetrahedra), ``kernels.neighbours``;
+* the point locator's records (first vertex, inverse edge matrix) and box tree, one pass
+  (``kernels.tet_geometry``).
 
 Ratio: preparation / read; the goal is <= 1.0. The fastest of ``--repeat`` runs counts on both sides; the
 first ``Mesh(grid)`` of the process, which is what a run pays (its large temporaries come fresh from the
@@ -65,7 +66,7 @@ def parts(grid) -> dict[str, float]:
     from vtkflow import _vtk
     from vtkflow._vtk import vtk_to_numpy
     from vtkflow.mesh import Mesh, cell_types
-    from vtkflow.kernels import build_bins, neighbours, tet_inverses
+    from vtkflow.kernels import neighbours, tet_geometry
     from vtkflow.tetmesh import decompose
 
     out = {}
@@ -88,10 +89,8 @@ def parts(grid) -> dict[str, float]:
 
     out["tetmesh.decompose"], tm = timed(lambda: decompose(m.points, m.offsets, m.connectivity, m.cell_types))
 
-    out["Locator inverse matrices"], _ = timed(lambda: tet_inverses(tm.points, tm.tets))
+    out["kernels.tet_geometry (records, box tree)"], _ = timed(lambda: tet_geometry(tm.points, tm.tets))
     out["kernels.neighbours"], _ = timed(lambda: neighbours(tm.tets))
-    out["kernels.build_bins"], bins = timed(lambda: build_bins(tm.points, tm.tets))
-    out["_bin_entries"] = float(len(bins.items))
     return out
 
 
@@ -140,14 +139,12 @@ def main() -> None:
     rep.say(f"vtkflow Mesh(grid): {', '.join(f'{t:.3f}' for t in preps)} s -> {t_prep:.3f} s; "
             f"preparation / read = {t_prep / t_read:.2f}, / jittered read = {t_prep / t_jread:.2f} (goal <= 1.0)")
     pieces = parts(read_grid)
-    entries = pieces.pop("_bin_entries")
     total = sum(pieces.values())
     pieces["other (Mesh total - parts: allocation, page faults)"] = max(0.0, t_prep - total)
     total = sum(pieces.values())
     rep.say(f"breakdown (one run, sum {total:.3f} s):")
     for k, v in sorted(pieces.items(), key=lambda kv: -kv[1]):
         rep.say(f"  {k:42s} {v:7.3f} s  {100 * v / total:5.1f} %  ({v / t_read:.2f} x read)")
-    rep.say(f"  bin grid entries: {entries:.0f} ({entries / read_grid.GetNumberOfCells():.1f} per tetrahedron)")
 
     rep.add("preparation / read", t_prep, t_read, "s", goal="<= 1.0", note="fastest of the runs")
     rep.add("preparation / read, first call in the process", preps[0], t_read, "s", goal="<= 1.0",

@@ -208,15 +208,25 @@ def test_numba_engine_same_with_one_and_two_threads():
     assert np.array_equal(one.x, two.x) and np.array_equal(one.t, two.t) and np.array_equal(one.status, two.status)
 
 
-def test_numba_bins_equal_their_numpy_twin():
-    """The locator's bin grid (two numba passes) lists exactly what the vectorised NumPy build lists."""
-    from vtkflow.kernels import build_bins
-    from vtkflow.tetmesh import bin_grid
+def test_numba_box_tree_equals_its_numpy_twin():
+    """The locator's box tree (built in the numba geometry pass) equals the vectorised NumPy build, and every
+    box holds what it bounds: its tetrahedra's vertices (level 0) or its child boxes (levels above)."""
+    from vtkflow.kernels import tet_geometry
+    from vtkflow.tetmesh import TREE_FANOUT, TREE_LEAF, box_tree
 
     tm = Mesh(mixed_grid()).tetmesh
-    fast, slow = build_bins(tm.points, tm.tets, 2.0), bin_grid(tm.points, tm.tets, 2.0)
-    assert np.array_equal(fast.dims, slow.dims) and np.array_equal(fast.start, slow.start)
-    assert np.array_equal(fast.items, slow.items)  # both list a bin's tetrahedra in ascending order
+    fast, slow = tet_geometry(tm.points, tm.tets)[1], box_tree(tm.points, tm.tets)
+    assert len(fast.levels) >= 3  # a leaf level, an inner level and the top: the test sees every kind
+    assert np.array_equal(fast.levels, slow.levels) and np.array_equal(fast.boxes, slow.boxes)
+    lo, hi, lv = fast.boxes[:, :3], fast.boxes[:, 3:], fast.levels
+    p = tm.points[tm.tets]  # (M, 4, 3)
+    leaf = np.arange(len(tm.tets)) // TREE_LEAF
+    assert np.all(lo[leaf][:, None] < p) and np.all(p < hi[leaf][:, None])
+    for k in range(1, len(lv) - 1):
+        child = np.arange(lv[k - 1], lv[k])
+        parent = lv[k] + (child - lv[k - 1]) // TREE_FANOUT
+        assert np.all(lo[parent] <= lo[child]) and np.all(hi[child] <= hi[parent])
+    assert lv[-1] - lv[-2] == 1  # one box at the top
 
 
 def test_inverse_edge_matrices_match_numpy():

@@ -196,7 +196,7 @@ def test_particles_are_grouped_by_region_before_each_engine_call():
 
 def test_just_released_particles_are_located_before_they_are_ordered(cube):
     """``find_cells`` gives the particles without a tetrahedron (cell -1) the one the locator finds (the
-    reference: ``Locator.locate``, the bin grid without a hint; -1 outside the mesh), and leaves the rows it
+    reference: ``Locator.locate``, the box tree without a hint; -1 outside the mesh), and leaves the rows it
     is not given, and those that have a tetrahedron, as they are."""
     from vtkflow.integrate import find_cells
 

@@ -63,9 +63,9 @@ def _sample(x0, x1, x2, t, hint, mesh, field, sign, frozen, cubic, need_h=True):
     the speed that of the velocity itself (in frozen mode ``u`` is its unit tangent). The cell size is
     interpolated only when ``need_h`` (0.0 otherwise), and a snapshot of zero weight is not read.
     ``frozen`` and ``cubic`` are the mode switches (:data:`ON`, :data:`OFF`)."""
-    geom, nbr, conn, origin, spacing, dims, start, items = mesh
+    geom, nbr, conn, boxes, levels = mesh
     values, t0, t1, time, floor = field
-    cell, b0, b1, b2, b3 = _locate(x0, x1, x2, hint, geom, nbr, origin, spacing, dims, start, items)
+    cell, b0, b1, b2, b3 = _locate(x0, x1, x2, hint, geom, nbr, boxes, levels)
     if cell < 0:
         return -1, 0.0, OUTSIDE, 0.0, 0.0, 0.0, 0.0
     tt = time if _on(frozen) else t
@@ -197,7 +197,7 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
     inlines take and return scalars for the same reason."""
     min_step, max_growth, tol, rel_tol = params
     cc, aa, bb, ee, adaptive = scheme
-    geom, nbr, conn, origin, spacing, dims, first, items = mesh
+    geom, nbr, conn, boxes, levels = mesh
     ns = bb.shape[0]
     x0, x1, x2 = X[i, 0], X[i, 1], X[i, 2]
     v0, v1, v2 = V[i, 0], V[i, 1], V[i, 2]
@@ -205,8 +205,8 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
     h = H[i]
     cell = C[i]
     n = 0
-    if cell < 0:  # no hint yet (just released): locate through the bins
-        cell = _locate(x0, x1, x2, -1, geom, nbr, origin, spacing, dims, first, items)[0]
+    if cell < 0:  # no hint yet (just released): locate through the box tree
+        cell = _locate(x0, x1, x2, -1, geom, nbr, boxes, levels)[0]
         if cell < 0:
             S[i] = EXITED
             C[i] = cell
@@ -362,16 +362,16 @@ def _advance_many(rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh
 
 @njit(cache=True, fastmath=FMA, parallel=True)
 def _find_cells(rows, X, C, mesh):
-    geom, nbr, conn, origin, spacing, dims, first, items = mesh
+    geom, nbr, conn, boxes, levels = mesh
     for j in prange(rows.shape[0]):
         i = rows[j]
         if C[i] < 0:
-            C[i] = _locate(X[i, 0], X[i, 1], X[i, 2], -1, geom, nbr, origin, spacing, dims, first, items)[0]
+            C[i] = _locate(X[i, 0], X[i, 1], X[i, 2], -1, geom, nbr, boxes, levels)[0]
 
 
 def find_cells(rows, x, cell, mesh) -> None:
     """Give the particles ``rows`` that have no tetrahedron yet (``cell`` -1, e.g. just released) the one
-    containing them, through the bin grid, as the engine itself would on their first step (-1 outside):
+    containing them, through the box tree, as the engine itself would on their first step (-1 outside):
     with it, they can be ordered by region before their first step."""
     _find_cells(np.ascontiguousarray(rows, dtype=np.int64), x, cell, mesh)
 

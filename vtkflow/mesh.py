@@ -2,7 +2,7 @@
 
 :class:`Mesh` wraps a ``vtkUnstructuredGrid`` that holds topology only. It builds, once:
 
-* a conforming tetrahedral decomposition with face neighbours and a bin grid (:mod:`vtkflow.tetmesh`),
+* a conforming tetrahedral decomposition with face neighbours and a box tree (:mod:`vtkflow.tetmesh`),
   used by the numba point locator of :mod:`vtkflow.kernels` to interpolate point arrays linearly in the
   tetrahedra (exact for fields linear in space, on every cell type);
 * the local cell size at each point (the smallest size of the cells that use the point, a cell's size

@@ -145,8 +145,7 @@ class TimeField:
         """The plain arrays the numba engine needs: ``(mesh tuple, field tuple)``; with ``time``, the
         frozen unit-tangent field at that time (streamlines)."""
         loc = self.mesh.locator
-        b = loc.bins
-        mesh = (loc.geom, loc.nbr, loc.conn, b.origin, b.spacing, b.dims, b.start, b.items)
+        mesh = (loc.geom, loc.nbr, loc.conn, loc.tree.boxes, loc.tree.levels)
         frozen = time is not None
         field = (self.mesh.values, self.t0, self.t1, frozen, float(time or 0.0), float(floor), self.cubic)
         return mesh, field

@@ -1,4 +1,4 @@
-"""Tetrahedral decomposition of a mixed-cell mesh, face neighbours and a bin locator, built once.
+"""Tetrahedral decomposition of a mixed-cell mesh, face neighbours and a box tree for point location, built once.
 
 Every cell is cut into tetrahedra conformingly: each quadrilateral face is split along the diagonal
 through its vertex of smallest global index, so the two cells that share it split it the same way
@@ -25,7 +25,7 @@ import scipy.sparse as sp
 
 from .errors import InputError
 
-__all__ = ["TetMesh", "decompose", "orient_and_order_numpy", "morton_order", "split_wedges", "face_neighbours", "BinGrid", "bin_grid", "grid_shape"]
+__all__ = ["TetMesh", "decompose", "orient_and_order_numpy", "morton_order", "split_wedges", "face_neighbours", "BoxTree", "box_tree", "tree_levels", "tree_pad"]
 
 TETRA, VOXEL, HEXAHEDRON, WEDGE, PYRAMID = 10, 11, 12, 13, 14
 #: Cells below three dimensions (vertex, poly-vertex, line, polyline, triangle, strip, polygon, pixel, quad):
@@ -274,56 +274,59 @@ def face_neighbours(tets: np.ndarray) -> np.ndarray:
     return nbr.reshape(m, 4)
 
 
-#: Tetrahedra per bin (by volume) of the locator's bin grid. The bins serve only first placement and
-#: recovery (steps walk); 16 lists each tetrahedron in about 4.7 bins (6.5 at 8) on a uniform tetrahedral
-#: cube, building them in half the time for a quarter more time per placement (measured, benchmarks/prep.py).
-PER_BIN = 16.0
+#: Tetrahedra per leaf of the locator's box tree, and boxes per box of the level above. 8 and 8: the tree
+#: is shallow (7 levels over 1.2 M tetrahedra) and a leaf's tetrahedra span a few cache lines; leaves of 4
+#: or 16 and fan-outs of 4 located random points as fast (measured, benchmarks/prep.py's mesh).
+TREE_LEAF = 8
+TREE_FANOUT = 8
 
 
 @dataclass
-class BinGrid:
-    """A uniform grid of bins over the mesh bounds; ``items[start[b]:start[b + 1]]`` are the tetrahedra
-    whose bounding boxes overlap bin ``b`` (bins numbered x fastest)."""
+class BoxTree:
+    """Bounding boxes over runs of consecutive tetrahedra: the point locator's global search.
 
-    origin: np.ndarray  # (3,)
-    spacing: np.ndarray  # (3,)
-    dims: np.ndarray  # (3,) int64
-    start: np.ndarray  # (n_bins + 1,) int64
-    items: np.ndarray  # (K,) int64
+    The tetrahedra are numbered along a Morton curve (:func:`decompose`), so a run of consecutive ones is
+    compact in space and nothing needs sorting: box ``i`` of level 0 bounds tetrahedra
+    ``[TREE_LEAF i, TREE_LEAF (i + 1))``, box ``i`` of level ``k`` bounds boxes ``[TREE_FANOUT i,
+    TREE_FANOUT (i + 1))`` of level ``k - 1``, and the top level is one box. Rows
+    ``boxes[levels[k]:levels[k + 1]]`` are level ``k``, each ``(lo_x, lo_y, lo_z, hi_x, hi_y, hi_z)``, padded
+    by round-off (:func:`tree_pad`) so that a point on a face finds the tetrahedra on both sides.
+    """
+
+    boxes: np.ndarray  # (n_boxes, 6)
+    levels: np.ndarray  # (n_levels + 1,) int64
 
 
-def grid_shape(points: np.ndarray, n_tets: int, per_bin: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
-    """Origin, spacing and dimensions of a bin grid of about ``per_bin`` tetrahedra per bin over the
-    bounds of ``points``, bins as close to cubes as the bounds allow; and the padding of the boxes."""
+def tree_levels(n_tets: int) -> np.ndarray:
+    """Row bounds of the levels of a :class:`BoxTree` over ``n_tets`` tetrahedra (at least one level)."""
+    sizes = [max(1, -(-int(n_tets) // TREE_LEAF))]
+    while sizes[-1] > 1:
+        sizes.append(-(-sizes[-1] // TREE_FANOUT))
+    levels = np.zeros(len(sizes) + 1, np.int64)
+    np.cumsum(sizes, out=levels[1:])
+    return levels
+
+
+def tree_pad(points: np.ndarray) -> float:
+    """Round-off padding of the tree's boxes: 1e-9 of the largest extent of the mesh bounds."""
     from .kernels import bounds
 
-    origin, top = bounds(points)
-    extent = np.maximum(top - origin, 1e-300)
-    cube = (np.prod(extent) / max(1.0, n_tets / per_bin)) ** (1.0 / 3.0)
-    dims = np.clip(np.ceil(extent / cube), 1, 2048).astype(np.int64)
-    # boxes padded by round-off, so that a point on a box face finds the tetrahedron from either bin
-    return origin, extent / dims, dims, 1e-9 * float(extent.max())
+    lo, hi = bounds(points)
+    return 1e-9 * float(np.max(hi - lo))
 
 
-def bin_grid(points: np.ndarray, tets: np.ndarray, per_bin: float = PER_BIN) -> BinGrid:
-    """Bins of about ``per_bin`` tetrahedra each (vectorised NumPy; the twin of
-    :func:`vtkflow.kernels.build_bins`, which the locator uses)."""
-    origin, spacing, dims, pad = grid_shape(points, len(tets), per_bin)
+def box_tree(points: np.ndarray, tets: np.ndarray) -> BoxTree:
+    """The box tree over ``tets`` (vectorised NumPy; the twin of :func:`vtkflow.kernels.tet_geometry`, which
+    builds it with the locator's per-tetrahedron records in one pass)."""
+    levels = tree_levels(len(tets))
+    pad = tree_pad(points)
+    boxes = np.empty((int(levels[-1]), 6))
     p = points[tets]
     lo, hi = p.min(axis=1) - pad, p.max(axis=1) + pad
-    i0 = np.clip(((lo - origin) / spacing).astype(np.int64), 0, dims - 1)
-    i1 = np.clip(((hi - origin) / spacing).astype(np.int64), 0, dims - 1)
-    span = i1 - i0 + 1
-    counts = np.prod(span, axis=1)
-    owner = np.repeat(np.arange(len(tets)), counts)
-    # position of each (tet, bin) entry inside its tet's box of bins
-    local = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
-    sx, sy = span[owner, 0], span[owner, 1]
-    ix = i0[owner, 0] + local % sx
-    iy = i0[owner, 1] + (local // sx) % sy
-    iz = i0[owner, 2] + local // (sx * sy)
-    b = ix + dims[0] * (iy + dims[1] * iz)
-    order = np.argsort(b, kind="stable")
-    start = np.zeros(int(np.prod(dims)) + 1, dtype=np.int64)
-    np.cumsum(np.bincount(b, minlength=int(np.prod(dims))), out=start[1:])
-    return BinGrid(origin, spacing, dims, start, owner[order].astype(np.int64))
+    for k, group in enumerate([TREE_LEAF] + [TREE_FANOUT] * (len(levels) - 2)):
+        n = int(levels[k + 1] - levels[k])
+        fill = n * group - len(lo)
+        lo = np.concatenate([lo, np.full((fill, 3), np.inf)]).reshape(n, group, 3).min(axis=1)
+        hi = np.concatenate([hi, np.full((fill, 3), -np.inf)]).reshape(n, group, 3).max(axis=1)
+        boxes[levels[k]:levels[k + 1]] = np.hstack([lo, hi])
+    return BoxTree(boxes, levels)
