@@ -262,6 +262,11 @@ def test_linear_time_neighbours_equal_their_numpy_twin():
     for grid in (mixed_grid(), box_mesh((0, 0, 0), (1, 1, 1), (4, 3, 2), "tetra")):
         tets = Mesh(grid).tetmesh.tets
         assert np.array_equal(neighbours(tets), face_neighbours(tets))
+    # a face shared by three tetrahedra (not a conforming mesh): the first two in face order are paired,
+    # the third has none; the faces on the far sides have none
+    book = np.array([[0, 1, 2, 3], [0, 1, 2, 4], [0, 1, 2, 5]])
+    nbr = neighbours(book)
+    assert nbr[0, 3] == 1 and nbr[1, 3] == 0 and nbr[2, 3] == -1 and (nbr[:, :3] == -1).all()
 
 
 def test_cell_and_point_sizes_match_numpy():
@@ -278,6 +283,19 @@ def test_cell_and_point_sizes_match_numpy():
     np.testing.assert_allclose(mesh.cell_size, cs, rtol=1e-14)
     np.testing.assert_allclose(mesh.point_size, ps, rtol=1e-14)
     assert mesh.cell_size[0] == pytest.approx(1.0)  # the unit hexahedron's edge
+    # each thread takes the minimum over its own cells, then the threads' minima are reduced: the same
+    # point sizes with one thread as with two
+    from numba import get_num_threads, set_num_threads
+
+    from vtkflow.kernels import cell_sizes
+
+    was = get_num_threads()
+    try:
+        set_num_threads(1)
+        one = cell_sizes(mesh.points, mesh.offsets, mesh.connectivity)
+    finally:
+        set_num_threads(was)
+    assert was >= 2 and np.array_equal(one[1], mesh.point_size) and np.array_equal(one[0], mesh.cell_size)
 
 
 def test_group_order_matches_stable_argsort():
