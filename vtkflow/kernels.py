@@ -344,16 +344,37 @@ _GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 _EMPTY, _PAIRED = -1, -2  # pairing table slots: never used; held a face that found its twin
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _meet(face, key, table_key, table_face, used, k, mask, shift, nbr):
+    """Look ``face`` (its ``key``) up in a pairing table: pair it with the face of equal key that waits
+    there, or leave it waiting (its slot noted in ``used[k]``). Returns the new count of used slots."""
+    h = np.int64((np.uint64(key) * _GOLDEN) >> shift)
+    while True:
+        held = table_key[h]
+        if held == _EMPTY:  # no earlier face waits: this one does
+            table_key[h], table_face[h] = key, face
+            used[k] = h
+            nbr[face] = -1
+            return k + 1
+        if held == key:  # the twin
+            other = table_face[h]
+            nbr[face], nbr[other] = other >> 2, face >> 2
+            table_key[h] = _PAIRED
+            return k
+        h = (h + 1) & mask
+
+
 @njit(cache=True, parallel=True)
 def _pair_faces(tets, entries, start, nbr):
     """Pair the faces with equal vertices within each bucket (both faces of a pair share a bucket, so
     buckets are independent and each thread writes only its own buckets' faces); unpaired faces get -1.
 
-    A bucket's faces, in face order, are keyed by their two larger vertices (one number) and looked up in
-    a small open-addressing hash table (linear probing, one table per run of buckets, at most half
-    full): a face meets the earlier face of equal key that has no twin yet, or waits in the table. Linear
-    in the bucket's size (a pairwise scan was 1.3x slower); the same pairs as the scan, also where more
-    than two faces share vertices (first with second, third with fourth)."""
+    A bucket's faces, in entry order, are keyed by their two vertices other than the bucket's (one
+    number, no sorting: the smaller and the larger of two) and looked up in a small open-addressing hash
+    table (linear probing, one table per run of buckets, at most half full): a face meets the earlier
+    face of equal key that has no twin yet, or waits in the table. Linear in the bucket's size (a
+    pairwise scan was 1.3x slower); where more than two faces share vertices, the first is paired with
+    the second, the third with the fourth."""
     n = np.int64(start.shape[0] - 1)
     for r in prange(PAIR_CHUNKS):
         lo, hi = r * n // PAIR_CHUNKS, (r + 1) * n // PAIR_CHUNKS
@@ -371,25 +392,18 @@ def _pair_faces(tets, entries, start, nbr):
             for e in range(start[v], start[v + 1]):
                 code = np.int64(entries[e])
                 t, i = code >> 3, code & 3
-                for f in range(4):  # opposite vertex f: through v when f != i, the far face when f == i
-                    if (f == i) != (code & 4 == 0):
-                        b, c, d = _sort3(tets[t, (f + 1) & 3], tets[t, (f + 2) & 3], tets[t, (f + 3) & 3])
-                        key, face = np.int64(c) * n + d, 4 * t + f
-                        h = np.int64((np.uint64(key) * _GOLDEN) >> shift)
-                        while True:
-                            held = table_key[h]
-                            if held == _EMPTY:  # no earlier face waits: this one does
-                                table_key[h], table_face[h] = key, face
-                                used[k] = h
-                                k += 1
-                                nbr[face] = -1
-                                break
-                            if held == key:  # the twin
-                                other = table_face[h]
-                                nbr[face], nbr[other] = other >> 2, face >> 2
-                                table_key[h] = _PAIRED
-                                break
-                            h = (h + 1) & mask
+                if code & 4:  # the face opposite the smallest vertex i (v the smallest of its three)
+                    b, c, d = tets[t, (i + 1) & 3], tets[t, (i + 2) & 3], tets[t, (i + 3) & 3]
+                    top = np.int64(max(max(b, c), d))
+                    key = (np.int64(b) + c + d - v - top) * n + top
+                    k = _meet(4 * t + i, key, table_key, table_face, used, k, mask, shift, nbr)
+                else:  # the three faces through v = vertex i, opposite vertex f: their others g and 6 - i - f - g
+                    for j in range(1, 4):
+                        f = (i + j) & 3
+                        g = (i + (2 if j == 1 else 1)) & 3
+                        b, c = np.int64(tets[t, g]), np.int64(tets[t, 6 - i - f - g])
+                        k = _meet(4 * t + f, min(b, c) * n + max(b, c), table_key, table_face, used, k, mask,
+                                  shift, nbr)
             for q in range(k):  # clear the slots this bucket used
                 table_key[used[q]] = _EMPTY
 
