@@ -296,15 +296,25 @@ def test_cell_and_point_sizes_match_numpy():
     finally:
         set_num_threads(was)
     assert was >= 2 and np.array_equal(one[1], mesh.point_size) and np.array_equal(one[0], mesh.cell_size)
+    # a degenerate cell (all corners at one point) and a point no cell uses get the smallest positive size
+    pts = np.array([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1], [5, 5, 5], [9, 9, 9.0]])
+    conn = np.array([0, 1, 2, 3, 4, 4, 4, 4])
+    cs, ps = cell_sizes(pts, np.array([0, 4, 8]), conn)
+    np.testing.assert_array_equal(cs, [1.0, 1.0])  # unit tetrahedron: diagonal sqrt(3) / sqrt(3)
+    np.testing.assert_array_equal(ps, [1.0] * 6)
 
 
 def test_group_order_matches_stable_argsort():
-    """The linear-time grouping equals NumPy's stable argsort (its twin)."""
+    """The linear-time grouping equals NumPy's stable argsort (its twin), in one piece and, for long inputs,
+    in parallel pieces (``kernels.SORT_PARALLEL``)."""
+    from vtkflow.kernels import SORT_PARALLEL
+
     rng = np.random.default_rng(7)
-    keys = rng.integers(0, 50, 5000)
-    order, sizes = group_order(keys, 60)
-    np.testing.assert_array_equal(order, np.argsort(keys, kind="stable"))
-    np.testing.assert_array_equal(sizes, np.bincount(keys, minlength=60))
+    for n, n_keys in ((5000, 60), (SORT_PARALLEL + 12345, 1000)):
+        keys = rng.integers(0, n_keys - 10, n)
+        order, sizes = group_order(keys, n_keys)
+        np.testing.assert_array_equal(order, np.argsort(keys, kind="stable"))
+        np.testing.assert_array_equal(sizes, np.bincount(keys, minlength=n_keys))
 
 
 def test_shifted_order_matches_stable_argsort_of_the_shifted_keys():

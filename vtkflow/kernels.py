@@ -421,7 +421,7 @@ def neighbours(tets: np.ndarray) -> np.ndarray:
         raise ValueError(f"{n_points} points: face keys need n_points**2 < 2**63")
     # counting sort of the tetrahedra by the smallest vertices of their faces, in parallel over fixed
     # pieces: bucket v is entries[start[v]:start[v + 1]], in tetrahedron order
-    slots = np.zeros((FACE_PIECES, n_points), np.int64)
+    slots = np.zeros((FACE_PIECES, n_points), idx)  # counts, then places: below 2 m
     entries, nbr = np.empty(2 * m, idx), np.empty(4 * m, idx)
     _face_pass(tets, slots, entries, False)
     start = np.empty(n_points + 1, np.int64)
@@ -533,21 +533,36 @@ def orient_and_order(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, 
     return out, order
 
 
-@njit(cache=True)
-def _group_order(values, shift, start, order):
-    """Stable counting sort of ``values`` by the key ``(v >> shift) + 1`` (0 for negative values) into
-    ``order``; ``start`` (n_keys + 1) receives the group bounds."""
-    start[:] = 0
-    for i in range(values.shape[0]):
-        k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
-        start[k + 1] += 1
-    for k in range(start.shape[0] - 1):
-        start[k + 1] += start[k]
-    seen = np.zeros(start.shape[0] - 1, np.int64)
-    for i in range(values.shape[0]):
-        k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
-        order[start[k] + seen[k]] = i
-        seen[k] += 1
+#: Inputs of at least this many values are counting-sorted in SORT_PIECES fixed pieces in parallel (fewer in
+#: one piece: no parallel start-up for the engine's small sorts). The order is the same either way.
+SORT_PARALLEL = 1 << 17
+SORT_PIECES = 2
+
+
+@njit(cache=True, parallel=True)
+def _key_pass(values, shift, slots, order, fill):
+    """Count (``fill`` False: ``slots[p, k] += 1``) or place (``order[slots[p, k]] = i``) the values of piece
+    ``p`` by the key ``k = (v >> shift) + 1`` (0 for negative values)."""
+    n, n_pieces = values.shape[0], slots.shape[0]
+    for p in prange(n_pieces):
+        for i in range(p * n // n_pieces, (p + 1) * n // n_pieces):
+            k = (values[i] >> shift) + 1 if values[i] >= 0 else 0
+            if fill:
+                order[slots[p, k]] = i
+            slots[p, k] += 1
+
+
+def _group_order(values: np.ndarray, shift: int, n_keys: int) -> tuple[np.ndarray, np.ndarray]:
+    """Stable counting sort of ``values`` by the key ``(v >> shift) + 1`` (0 for negative values; keys below
+    ``n_keys``): the permutation and the group bounds ``(n_keys + 1,)``."""
+    pieces = SORT_PIECES if len(values) >= SORT_PARALLEL else 1
+    slots = np.zeros((pieces, n_keys), np.int64)
+    order = np.empty(len(values), np.int64)
+    _key_pass(values, np.int64(shift), slots, order, False)
+    start = np.empty(n_keys + 1, np.int64)
+    _piece_starts(slots, start)
+    _key_pass(values, np.int64(shift), slots, order, True)
+    return order, start
 
 
 @njit(cache=True, parallel=True)
@@ -587,32 +602,29 @@ def put_columns(table: np.ndarray, col: int, src: np.ndarray) -> None:
 def shifted_order(values: np.ndarray, shift: int, top: int) -> np.ndarray:
     """:func:`group_order` of the keys ``(values >> shift) + 1``, negative values keyed 0 (first), for
     integers in ``[-1, top]``: the keys are computed in the counting sort itself, no key array."""
-    values = np.ascontiguousarray(values)
-    start = np.empty((int(top) >> int(shift)) + 3, np.int64)
-    order = np.empty(len(values), np.int64)
-    _group_order(values, np.int64(shift), start, order)
-    return order
+    return _group_order(np.ascontiguousarray(values), int(shift), (int(top) >> int(shift)) + 2)[0]
 
 
 def group_order(keys: np.ndarray, n_keys: int) -> tuple[np.ndarray, np.ndarray]:
     """Permutation that groups ``keys`` (ints in ``[0, n_keys)``) in ascending order, keeping the original
     order within a group, in linear time; and the size of each group ``(n_keys,)``. The twin of
     ``numpy.argsort(keys, kind="stable")``."""
-    keys = np.ascontiguousarray(keys, dtype=np.int64)
-    start = np.empty(n_keys + 2, np.int64)  # key k sorted as k + 1 (the sort's key 0 holds negative values)
-    order = np.empty(len(keys), np.int64)
-    _group_order(keys, np.int64(0), start, order)
+    # key k sorted as k + 1 (the sort's key 0 holds negative values)
+    order, start = _group_order(np.ascontiguousarray(keys, dtype=np.int64), 0, int(n_keys) + 1)
     return order, np.diff(start[1:])
 
 
 @njit(cache=True, parallel=True)
-def _cell_sizes(points, offsets, conn, cell_size, point_size):
+def _cell_sizes(points, offsets, conn, cell_size, point_size, smallest):
     """Cell sizes, and in the same pass the smallest size of the cells at each point: each of the pieces
     ``point_size[p]`` (rows of cells, one per thread) takes the minimum over its own cells, then the
-    pieces are reduced (a minimum is exact: the result does not depend on the number of pieces)."""
+    pieces are reduced (a minimum is exact: the result does not depend on the number of pieces). Sizes
+    that are not positive (and points without cells) then get the smallest positive size (``smallest[p]``:
+    each piece's), 1.0 if there is none."""
     n, n_pieces = offsets.shape[0] - 1, point_size.shape[0]
     for p in prange(n_pieces):
         point_size[p, :] = np.inf
+        smallest[p] = np.inf
         for c in range(p * n // n_pieces, (p + 1) * n // n_pieces):
             lo0 = lo1 = lo2 = np.inf
             hi0 = hi1 = hi2 = -np.inf
@@ -624,21 +636,33 @@ def _cell_sizes(points, offsets, conn, cell_size, point_size):
                 lo2, hi2 = min(lo2, z), max(hi2, z)
             size = np.sqrt(((hi0 - lo0) ** 2 + (hi1 - lo1) ** 2 + (hi2 - lo2) ** 2) / 3.0)
             cell_size[c] = size
+            if size > 0.0:
+                smallest[p] = min(smallest[p], size)
             for k in range(offsets[c], offsets[c + 1]):
                 point_size[p, conn[k]] = min(point_size[p, conn[k]], size)
+    floor = smallest.min()
+    if not floor < np.inf:
+        floor = 1.0
     for i in prange(point_size.shape[1]):
         for p in range(1, n_pieces):
             point_size[0, i] = min(point_size[0, i], point_size[p, i])
+        if not (point_size[0, i] > 0.0 and point_size[0, i] < np.inf):
+            point_size[0, i] = floor
+    for c in prange(n):
+        if not cell_size[c] > 0.0:
+            cell_size[c] = floor
 
 
 def cell_sizes(points: np.ndarray, offsets: np.ndarray, conn: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Size of each cell (bounding-box diagonal over sqrt(3)) and, at each point, the smallest size of
-    the cells that use it (inf where none does)."""
+    the cells that use it. Sizes that are not positive (degenerate cells; points that no cell uses) get the
+    smallest positive size of the mesh (1.0 if none), so that no step bound is zero."""
     from numba import get_num_threads
 
     cs = np.empty(len(offsets) - 1)
-    ps = np.empty((max(1, min(get_num_threads(), len(cs))), len(points)))
-    _cell_sizes(np.ascontiguousarray(points, dtype=np.float64), offsets, conn, cs, ps)
+    pieces = max(1, min(get_num_threads(), len(cs)))
+    ps = np.empty((pieces, len(points)))
+    _cell_sizes(np.ascontiguousarray(points, dtype=np.float64), offsets, conn, cs, ps, np.empty(pieces))
     return cs, ps[0]
 
 

@@ -169,13 +169,8 @@ class Mesh:
         """Size of each cell: its bounding-box diagonal over sqrt(3), the edge of the cube with the same
         diagonal (a hexahedron's edge; common practice for step control); and at each point the smallest
         size of the cells that use it. Zero sizes get the smallest positive size of the mesh, so that no
-        step bound is zero."""
-        cell, point = cell_sizes(self.points, self.offsets, self.connectivity)
-        positive = cell[cell > 0]
-        floor = positive.min() if positive.size else 1.0
-        cell[~(cell > 0)] = floor
-        point[~(point > 0) | ~np.isfinite(point)] = floor
-        return cell, point
+        step bound is zero (:func:`vtkflow.kernels.cell_sizes`)."""
+        return cell_sizes(self.points, self.offsets, self.connectivity)
 
 
 def cell_types(grid: Any) -> np.ndarray:
