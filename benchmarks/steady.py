@@ -9,8 +9,9 @@ classical RK4 at a quarter cell per step on both sides:
   of the local cell size, its bounding-box diagonal over sqrt(3)); mesh preparation (``Mesh(grid)``) is timed apart;
 * VTK: ``vtkStreamTracer`` (RK4, ``CELL_LENGTH_UNIT`` step 0.25, i.e. a quarter of the cell's bounding-box
   diagonal, ``MaximumPropagation`` = the same arc length), with each cell locator this VTK offers; its
-  locator is built by a first, negligible update and timed apart, like vtkflow's preparation. A third run
-  gives VTK vtkflow's step length (``LENGTH_UNIT``) for an error comparison at equal steps.
+  locator is built by a first, negligible update and timed apart, like vtkflow's preparation. One more
+  tracer (static locator) gives VTK vtkflow's step length (``LENGTH_UNIT``) for an error comparison at
+  equal steps.
 
 Velocity evaluations: 4 per RK4 step on both sides (vtkflow: vertices - seeds of the StreamlineSet; VTK:
 points - lines of its output). End-point error: against SciPy's ``solve_ivp`` (DOP853, rtol 1e-10) on the
@@ -19,7 +20,8 @@ stays in the cube and that both sides carried the whole length; the cross-track 
 exact streamline) separates the path error from the arc-length bookkeeping.
 
 Timed runs are repeated (``--repeat``, default 5) and the fastest counts, on both sides: a run over many
-frames traces again and again in one process. vtkflow's first full-size call is reported too: it pays the
+frames traces again and again in one process. The sides take turns, round by round (vtkflow, then each VTK
+tracer), so that both see the machine in the same states: its speed drifts by up to 1.5x within minutes. vtkflow's first full-size call is reported too: it pays the
 page faults of fresh memory for its records and outputs (dear on a virtual machine). Later calls write
 their outputs into the memory of earlier ones that the caller has dropped (``vtkflow.reuse``); the loop keeps
 the previous call's result while it makes the next, as a frame loop does.
@@ -41,8 +43,9 @@ from _common import (Report, abc_unit, add_common_args, box, inside_cube, machin
                      thread_summary, timed)
 
 
-def vtk_streamlines(grid, u, seeds, length, unit, step, locator, repeat=1):
-    """Run vtkStreamTracer; returns setup and trace times, steps, end points per seed, termination reasons."""
+def vtk_tracer(grid, u, seeds, length, unit, step, locator):
+    """A vtkStreamTracer set up and run once with a vanishing length (which builds its locator): the
+    filter and that setup time. Each :func:`vtk_trace` then re-executes it in full."""
     from vtkmodules.util.numpy_support import numpy_to_vtk, vtk_to_numpy
     from vtkmodules.vtkCommonCore import vtkPoints
     from vtkmodules.vtkCommonDataModel import vtkPolyData, vtkUnstructuredGrid
@@ -78,10 +81,22 @@ def vtk_streamlines(grid, u, seeds, length, unit, step, locator, repeat=1):
     st.SetMaximumPropagation(1e-9 * length)
     t_setup, _ = timed(st.Update)
     st.SetMaximumPropagation(length)
-    t_trace = np.inf
-    for _ in range(repeat):  # re-executes the filter; the locator is kept (the input did not change)
-        st.Modified()
-        t_trace = min(t_trace, timed(st.Update)[0])
+    st.locator_name = locator
+    return st, t_setup
+
+
+def vtk_trace(st) -> float:
+    """Re-execute a tracer of :func:`vtk_tracer` (its locator is kept: the input did not change): the time."""
+    st.Modified()
+    return timed(st.Update)[0]
+
+
+def vtk_results(st, seeds, t_setup, t_trace):
+    """Steps, end points per seed, termination reasons and polyline lengths of a tracer's last output."""
+    from vtkmodules.util.numpy_support import vtk_to_numpy
+    from vtkmodules.vtkFiltersFlowPaths import vtkStreamTracer
+
+    locator = st.locator_name
     out = st.GetOutput()
     n_pts, n_lines = out.GetNumberOfPoints(), out.GetNumberOfCells()
     ends = np.full((len(seeds), 3), np.nan)
@@ -178,15 +193,26 @@ def main() -> None:
         inner(*a)
         kernel["t"] += time.perf_counter() - t0
 
+    h = float(np.median(mesh.cell_size))
+    tracers = {}  # VTK's stream tracer with each cell locator, at the quarter-cell step; then at vtkflow's
+    for loc in ("default", "static", "jump-and-walk"):
+        tracers[loc] = vtk_tracer(grid, u, seeds, length, vtkStreamTracer.CELL_LENGTH_UNIT, step, loc)
+    same_loc = "static"
+    tracers["same"] = vtk_tracer(grid, u, seeds, length, vtkStreamTracer.LENGTH_UNIT, step * h, same_loc)
+    vtk_times = {k: np.inf for k in tracers}
     integrate._advance_many = counted
     try:
         t_ours, t_kernel, t_first = np.inf, np.inf, None
+        # the sides take turns, round by round, so that both see the machine in the same states (its speed
+        # drifts by up to 1.5x within minutes); the fastest run of each counts
         for _ in range(args.repeat):
             kernel["t"] = 0.0
             t, lines = timed(lambda: trace_streamlines(field, 0.0, seeds, ids, "forward", step, length))
             t_first = t if t_first is None else t_first
             if t < t_ours:
                 t_ours, t_kernel = t, kernel["t"]
+            for k, (st, _) in tracers.items():
+                vtk_times[k] = min(vtk_times[k], vtk_trace(st))
     finally:
         integrate._advance_many = inner
     kernel["t"] = t_kernel
@@ -196,7 +222,6 @@ def main() -> None:
     ends_ours = lines.points[last]
     full_ours = (lines.ends[0] == 0) & (np.abs(lines.arc_length[last] - length) <= 1e-9 * length)
     rate_ours = 4 * steps_ours / t_ours
-    h = float(np.median(mesh.cell_size))
     rep.say(f"vtkflow: preparation {t_prep:.2f} s, field load {t_load:.3f} s, warm-up {t_warm:.2f} s")
     rep.say(f"vtkflow: traced in {t_ours:.3f} s (first call {t_first:.3f} s; {kernel['t']:.3f} s in the numba RK4 "
             f"kernel, the rest: sampling the seeds, compacting and placing the records, Python), {steps_ours} RK4 steps, "
@@ -206,13 +231,14 @@ def main() -> None:
     # ----------------------------------------------------------------------------------------- VTK
     runs = {}
     for loc in ("default", "static", "jump-and-walk"):
-        r = vtk_streamlines(grid, u, seeds, length, vtkStreamTracer.CELL_LENGTH_UNIT, step, loc, args.repeat)
+        st, t_setup = tracers[loc]
+        r = vtk_results(st, seeds, t_setup, vtk_times[loc])
         runs[loc] = r
         rep.say(f"VTK ({loc} cell locator): setup {r['setup']:.3f} s, traced in {r['trace']:.3f} s, "
                 f"{r['steps']} RK4 steps, {4 * r['steps'] / r['trace'] / 1e6:.2f} M evaluations/s")
     best = min(runs.values(), key=lambda r: r["trace"] / max(r["steps"], 1))
     rate_vtk = 4 * best["steps"] / best["trace"]
-    same = vtk_streamlines(grid, u, seeds, length, vtkStreamTracer.LENGTH_UNIT, step * h, best["locator"], args.repeat)
+    same = vtk_results(tracers["same"][0], seeds, tracers["same"][1], vtk_times["same"])
     rep.say(f"VTK ({best['locator']}) at vtkflow's step length {step * h:.3g}: traced in {same['trace']:.3f} s, "
             f"{same['steps']} steps, {4 * same['steps'] / same['trace'] / 1e6:.2f} M evaluations/s")
 
