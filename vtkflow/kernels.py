@@ -274,8 +274,9 @@ def _geometry(points, tets, geom, boxes, pad):
                  e1y * e2z - e1z * e2y, e1z * e2x - e1x * e2z, e1x * e2y - e1y * e2x)
             det = e1x * r[0] + e1y * r[1] + e1z * r[2]
             geom[t, 0], geom[t, 1], geom[t, 2] = points[a, 0], points[a, 1], points[a, 2]
+            inv = 1.0 / det if abs(det) > 1e-300 else np.inf  # one division, nine products (not nine divisions)
             for j in range(9):
-                geom[t, 3 + j] = r[j] / det if abs(det) > 1e-300 else np.inf
+                geom[t, 3 + j] = r[j] * inv
             for v in (a, b, c, d):  # the vertices themselves (not first vertex + edge: no round-off)
                 lo0, hi0 = min(lo0, points[v, 0]), max(hi0, points[v, 0])
                 lo1, hi1 = min(lo1, points[v, 1]), max(hi1, points[v, 1])
@@ -408,13 +409,15 @@ def _pair_faces(tets, entries, start, nbr):
                 table_key[used[q]] = _EMPTY
 
 
-def neighbours(tets: np.ndarray) -> np.ndarray:
+def neighbours(tets: np.ndarray, n_points: int | None = None) -> np.ndarray:
     """Face neighbours as :func:`vtkflow.tetmesh.face_neighbours` (its NumPy twin), in linear time: faces
     are bucketed by their smallest vertex (a parallel counting sort of two entries per tetrahedron), then
-    paired within each small bucket."""
+    paired within each small bucket. ``n_points``: the number of points (default: one more than the largest
+    vertex number)."""
     tets = _index_table(tets)
     m = len(tets)
-    n_points = int(_largest(tets.reshape(-1))) + 1 if m else 0
+    if n_points is None:  # (the Locator knows it: no pass over the table)
+        n_points = int(_largest(tets.reshape(-1))) + 1 if m else 0
     # 32-bit entries and neighbours where the numbers fit: half the memory to fill (and fault in)
     idx = np.int32 if max(8 * m, n_points) < 2**31 else np.int64
     if float(n_points) ** 2 >= 2.0**63:
@@ -634,7 +637,7 @@ def _cell_sizes(points, offsets, conn, cell_size, point_size, smallest):
                 lo0, hi0 = min(lo0, x), max(hi0, x)
                 lo1, hi1 = min(lo1, y), max(hi1, y)
                 lo2, hi2 = min(lo2, z), max(hi2, z)
-            size = np.sqrt(((hi0 - lo0) ** 2 + (hi1 - lo1) ** 2 + (hi2 - lo2) ** 2) / 3.0)
+            size = np.sqrt(((hi0 - lo0) ** 2 + (hi1 - lo1) ** 2 + (hi2 - lo2) ** 2) * (1.0 / 3.0))
             cell_size[c] = size
             if size > 0.0:
                 smallest[p] = min(smallest[p], size)
@@ -713,7 +716,7 @@ class Locator:
             raise InputError(f"{len(tm.tets)} tetrahedra on {len(tm.points)} points: more than the engine's 32-bit "
                              "topology holds (2**31 - 1)")
         # 32-bit topology for the kernels: half the memory of 64-bit indices, on the walk's every step
-        self.nbr = neighbours(tm.tets).astype(np.int32, copy=False)
+        self.nbr = neighbours(tm.tets, len(tm.points)).astype(np.int32, copy=False)
         self.conn = tm.tets.astype(np.int32, copy=False)  # already 32-bit from the decomposition: no copy
 
     @property
