@@ -106,6 +106,34 @@ def test_locate_matches_brute_force_including_faces_edges_and_vertices():
     assert not found[-len(outside):].any()
 
 
+def test_locate_on_a_graded_l_shaped_mesh_matches_brute_force():
+    """Point location on a mesh that is neither convex nor uniform (the box tree's harder case): an L-shaped
+    block whose cells grow geometrically along x (an axis-wise monotone map keeps every tetrahedron valid).
+    Points in the notch and beyond the ends are outside; walks from random hints cross the notch, fail at
+    its faces and fall back to the tree. Reference: the brute-force search over every tetrahedron."""
+    grid = box_mesh((0, 0, 0), (2, 2, 1), (8, 8, 3), "tetra")
+    centres = np.asarray(grid.cell_centers().points)
+    grid = grid.extract_cells(np.flatnonzero(~((centres[:, 0] > 1) & (centres[:, 1] > 1))))
+    pts = np.array(grid.points)
+    pts[:, 0] = 2.0 * (np.expm1(2.0 * pts[:, 0]) / np.expm1(4.0))  # cells 7x longer at x = 2 than at x = 0
+    grid.points = pts
+    mesh = Mesh(grid)
+    tm = mesh.tetmesh
+    rng = np.random.default_rng(11)
+    x = np.concatenate([rng.uniform([-0.1, -0.1, -0.1], [2.1, 2.1, 1.1], (400, 3)),
+                        tm.points[rng.integers(0, len(tm.points), 40)]])
+    lam = naive_locate(tm.points, tm.tets, x)
+    contained = (lam >= -BARY_TOL).all(axis=2)
+    notch = (x[:, 0] > 2.0 * np.expm1(2.0) / np.expm1(4.0) + 1e-6) & (x[:, 1] > 1 + 1e-6)  # (points: float32)
+    assert notch.sum() > 20 and not contained[notch].any()  # the test sees the notch
+    for hints in (None, rng.integers(0, len(tm.tets), len(x))):
+        tets, bary = mesh.locate(x, hints)
+        found = tets >= 0
+        assert np.array_equal(found, contained.any(axis=1))
+        assert np.all(contained[np.flatnonzero(found), tets[found]])
+        np.testing.assert_allclose(bary[found], lam[np.flatnonzero(found), tets[found]], atol=1e-12)
+
+
 def test_walking_from_any_hint_finds_the_same_point():
     """The walk (Löhner & Ambrosiano 1990) from random starting tetrahedra reaches a containing one."""
     mesh = Mesh(box_mesh((0, 0, 0), (1, 1, 1), (6, 6, 6), "tetra"))
