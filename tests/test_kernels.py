@@ -295,6 +295,21 @@ def test_linear_time_neighbours_equal_their_numpy_twin():
     book = np.array([[0, 1, 2, 3], [0, 1, 2, 4], [0, 1, 2, 5]])
     nbr = neighbours(book)
     assert nbr[0, 3] == 1 and nbr[1, 3] == 0 and nbr[2, 3] == -1 and (nbr[:, :3] == -1).all()
+    # the counting sorts run in one piece per thread: the same tables with one thread
+    from numba import get_num_threads, set_num_threads
+
+    from vtkflow.kernels import SORT_PARALLEL
+
+    tets = Mesh(box_mesh((0, 0, 0), (1, 1, 1), (12, 12, 12), "tetra")).tetmesh.tets
+    keys = np.random.default_rng(2).integers(0, 999, SORT_PARALLEL + 7)
+    two = neighbours(tets), group_order(keys, 1000)[0]
+    was = get_num_threads()
+    try:
+        set_num_threads(1)
+        one = neighbours(tets), group_order(keys, 1000)[0]
+    finally:
+        set_num_threads(was)
+    assert was >= 2 and np.array_equal(one[0], two[0]) and np.array_equal(one[1], two[1])
 
 
 def test_cell_and_point_sizes_match_numpy():

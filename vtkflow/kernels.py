@@ -298,9 +298,15 @@ def _upper_boxes(boxes, levels):
                 boxes[here + i, c], boxes[here + i, 3 + c] = lo, hi
 
 
-#: Fixed pieces of the tetrahedra for the parallel counting sort of the faces (fixed, so that the buckets
-#: list their faces in the same order whatever the number of threads).
-FACE_PIECES = 4
+def _pieces(n: int) -> int:
+    """Pieces for a parallel counting sort of ``n`` items: one per thread (pieces are consecutive runs of the
+    input and fill each bucket in turn, so every bucket lists its items in input order whatever their
+    number: the result does not depend on it)."""
+    from numba import get_num_threads
+
+    return max(1, min(get_num_threads(), n))
+
+
 #: Runs of buckets the faces are paired in, in parallel (each with its own scratch arrays).
 PAIR_CHUNKS = 64
 
@@ -424,7 +430,7 @@ def neighbours(tets: np.ndarray, n_points: int | None = None) -> np.ndarray:
         raise ValueError(f"{n_points} points: face keys need n_points**2 < 2**63")
     # counting sort of the tetrahedra by the smallest vertices of their faces, in parallel over fixed
     # pieces: bucket v is entries[start[v]:start[v + 1]], in tetrahedron order
-    slots = np.zeros((FACE_PIECES, n_points), idx)  # counts, then places: below 2 m
+    slots = np.zeros((_pieces(m), n_points), idx)  # counts, then places: below 2 m
     entries, nbr = np.empty(2 * m, idx), np.empty(4 * m, idx)
     _face_pass(tets, slots, entries, False)
     start = np.empty(n_points + 1, np.int64)
@@ -536,10 +542,9 @@ def orient_and_order(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, 
     return out, order
 
 
-#: Inputs of at least this many values are counting-sorted in SORT_PIECES fixed pieces in parallel (fewer in
-#: one piece: no parallel start-up for the engine's small sorts). The order is the same either way.
+#: Inputs of at least this many values are counting-sorted in parallel pieces (fewer in one piece: no
+#: parallel start-up for the engine's small sorts). The order is the same either way.
 SORT_PARALLEL = 1 << 17
-SORT_PIECES = 2
 
 
 @njit(cache=True, parallel=True)
@@ -558,7 +563,7 @@ def _key_pass(values, shift, slots, order, fill):
 def _group_order(values: np.ndarray, shift: int, n_keys: int) -> tuple[np.ndarray, np.ndarray]:
     """Stable counting sort of ``values`` by the key ``(v >> shift) + 1`` (0 for negative values; keys below
     ``n_keys``): the permutation and the group bounds ``(n_keys + 1,)``."""
-    pieces = SORT_PIECES if len(values) >= SORT_PARALLEL else 1
+    pieces = _pieces(len(values)) if len(values) >= SORT_PARALLEL else 1
     slots = np.zeros((pieces, n_keys), np.int64)
     order = np.empty(len(values), np.int64)
     _key_pass(values, np.int64(shift), slots, order, False)
