@@ -21,8 +21,9 @@ exact streamline) separates the path error from the arc-length bookkeeping.
 
 Timed runs are repeated (``--repeat``, default 5) and the fastest counts, on both sides: a run over many
 frames traces again and again in one process. The sides take turns, round by round (vtkflow, then each VTK
-tracer), so that both see the machine in the same states: its speed drifts by up to 1.5x within minutes. vtkflow's first full-size call is reported too: it pays the
-page faults of fresh memory for its records and outputs (dear on a virtual machine). Later calls write
+tracer), so that both see the machine in the same states: its speed drifts within minutes (1.5x, at times
+more). vtkflow's first full-size call is reported too: it pays the page faults of fresh memory for its
+records and outputs (dear on a virtual machine). Later calls write
 their outputs into the memory of earlier ones that the caller has dropped (``vtkflow.reuse``); the loop keeps
 the previous call's result while it makes the next, as a frame loop does.
 
@@ -204,7 +205,7 @@ def main() -> None:
     try:
         t_ours, t_kernel, t_first = np.inf, np.inf, None
         # the sides take turns, round by round, so that both see the machine in the same states (its speed
-        # drifts by up to 1.5x within minutes); the fastest run of each counts
+        # drifts within minutes, 1.5x and at times more); the fastest run of each counts
         for _ in range(args.repeat):
             kernel["t"] = 0.0
             t, lines = timed(lambda: trace_streamlines(field, 0.0, seeds, ids, "forward", step, length))

@@ -21,7 +21,7 @@ in vtkflow's run), and the end-point error at t = 1 against SciPy's ``solve_ivp`
 the analytic field for a sample of particles whose exact path stays in the cube. The fastest run counts
 on both sides: VTK's configurations run ``--repeat`` times each, and vtkflow's runs are spread over the
 time they take (one before the first configuration and one after each), so that both sides see the
-machine in the same states: its speed drifts by up to 1.5x within minutes.
+machine in the same states: its speed drifts within minutes (1.5x, at times more).
 
 Usage: ``python benchmarks/transient.py [--quick] [--n 34] [--snapshots 20] [--particles 10000] [--json out.json]``.
 """
@@ -289,7 +289,7 @@ def main() -> None:
 
     # vtkflow's runs (linear and cubic in time) are spread over the time VTK's runs take: a pair before VTK's
     # first configuration and one after each, so that both sides see the machine in the same states (its
-    # speed drifts by up to 1.5x within minutes); the fastest run of each kind counts
+    # speed drifts within minutes, 1.5x and at times more); the fastest run of each kind counts
     ours, cubic = [run_ours()], [run_ours(True)]
     # every run computes the same paths (bitwise): the first of each kind serves the counts and the errors
     _, _, state, chunks = ours[0]
