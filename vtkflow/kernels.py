@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import numpy as np
 from llvmlite import ir
-from numba import njit, prange, types
+from numba import get_num_threads, njit, prange, types
 from numba.core import cgutils
 from numba.extending import intrinsic
 
@@ -57,7 +57,8 @@ def _bary(x0, x1, x2, t, geom):
 
 @njit(cache=True, fastmath=FMA, nogil=True, inline="always")
 def _lowest(b0, b1, b2, b3):
-    """Index and value of the smallest of four numbers (the first one on ties)."""
+    """Index and value of the smallest of four numbers (the first one on ties): the most negative
+    barycentric coordinate; the smallest vertex number of a tetrahedron."""
     f, v = 0, b0
     if b1 < v:
         f, v = 1, b1
@@ -299,29 +300,14 @@ def _upper_boxes(boxes, levels):
 
 
 def _pieces(n: int) -> int:
-    """Pieces for a parallel counting sort of ``n`` items: one per thread (pieces are consecutive runs of the
-    input and fill each bucket in turn, so every bucket lists its items in input order whatever their
-    number: the result does not depend on it)."""
-    from numba import get_num_threads
-
+    """Pieces of ``n`` items for a parallel pass in which each piece (a consecutive run of the input) writes
+    its own counts or minima: one per thread. The results do not depend on their number: a counting sort's
+    pieces fill each bucket in turn, so every bucket lists its items in input order; minima are exact."""
     return max(1, min(get_num_threads(), n))
 
 
 #: Runs of buckets the faces are paired in, in parallel (each with its own scratch arrays).
 PAIR_CHUNKS = 64
-
-
-@njit(cache=True, nogil=True, inline="always")
-def _lowest_at(a, b, c, d):
-    """Position (0-3) of the smallest of four vertex numbers."""
-    i, v = 0, a
-    if b < v:
-        i, v = 1, b
-    if c < v:
-        i, v = 2, c
-    if d < v:
-        i = 3
-    return i
 
 
 @njit(cache=True, parallel=True)
@@ -335,7 +321,7 @@ def _face_pass(tets, slots, entries, fill):
     n_pieces = slots.shape[0]
     for p in prange(n_pieces):
         for t in range(p * m // n_pieces, (p + 1) * m // n_pieces):
-            i = _lowest_at(tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3])
+            i = _lowest(tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3])[0]
             v = tets[t, i]
             w = min(min(tets[t, (i + 1) & 3], tets[t, (i + 2) & 3]), tets[t, (i + 3) & 3])
             if fill:
@@ -665,10 +651,8 @@ def cell_sizes(points: np.ndarray, offsets: np.ndarray, conn: np.ndarray) -> tup
     """Size of each cell (bounding-box diagonal over sqrt(3)) and, at each point, the smallest size of
     the cells that use it. Sizes that are not positive (degenerate cells; points that no cell uses) get the
     smallest positive size of the mesh (1.0 if none), so that no step bound is zero."""
-    from numba import get_num_threads
-
     cs = np.empty(len(offsets) - 1)
-    pieces = max(1, min(get_num_threads(), len(cs)))
+    pieces = _pieces(len(cs))  # each thread its own point minima (the minimum does not depend on them)
     ps = np.empty((pieces, len(points)))
     _cell_sizes(np.ascontiguousarray(points, dtype=np.float64), offsets, conn, cs, ps, np.empty(pieces))
     return cs, ps[0]
