@@ -47,7 +47,7 @@ from _common import (Report, abc_unit, add_common_args, box, inside_cube, machin
 def vtk_tracer(grid, u, seeds, length, unit, step, locator):
     """A vtkStreamTracer set up and run once with a vanishing length (which builds its locator): the
     filter and that setup time. Each :func:`vtk_trace` then re-executes it in full."""
-    from vtkmodules.util.numpy_support import numpy_to_vtk, vtk_to_numpy
+    from vtkmodules.util.numpy_support import numpy_to_vtk
     from vtkmodules.vtkCommonCore import vtkPoints
     from vtkmodules.vtkCommonDataModel import vtkPolyData, vtkUnstructuredGrid
     from vtkmodules.vtkFiltersFlowPaths import vtkStreamTracer
