@@ -90,7 +90,7 @@ def parts(grid) -> dict[str, float]:
     out["tetmesh.decompose"], tm = timed(lambda: decompose(m.points, m.offsets, m.connectivity, m.cell_types))
 
     out["kernels.tet_geometry (records, box tree)"], _ = timed(lambda: tet_geometry(tm.points, tm.tets))
-    out["kernels.neighbours"], _ = timed(lambda: neighbours(tm.tets))
+    out["kernels.neighbours"], _ = timed(lambda: neighbours(tm.tets, len(tm.points)))
     return out
 
 

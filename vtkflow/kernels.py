@@ -180,17 +180,24 @@ def _locate(x0, x1, x2, hint, geom, nbr, boxes, levels):
     return _search_tree(x0, x1, x2, geom, boxes, levels)
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _morton(x0, x1, x2, lo, scale):
+    """The 63-bit Morton code of a point over the box ``lo``, ``scale`` (21 bits per axis, x lowest; clamped
+    to the box, NaN to 0; masks as in :func:`vtkflow.tetmesh.morton_order`)."""
+    code = np.uint64(0)
+    for k, xk in enumerate((x0, x1, x2)):
+        s = (xk - lo[k]) * scale[k]
+        q = np.uint64(min(s, 2097151.0)) if s >= 0.0 else np.uint64(0)
+        code |= _spread21(q) << np.uint64(k)
+    return code
+
+
 @njit(cache=True, parallel=True)
 def _point_keys(xs, lo, scale, shift, keys):
-    """The leading bits of the Morton code of each point over the box ``lo``, ``scale`` (as the
-    tetrahedra's centroids are coded; clamped to the box, NaN to 0): a sort key, not a test of inclusion."""
+    """The leading bits of the Morton code of each point (as the tetrahedra's centroids are coded): a sort
+    key, not a test of inclusion."""
     for i in prange(xs.shape[0]):
-        code = np.uint64(0)
-        for k in range(3):
-            s = (xs[i, k] - lo[k]) * scale[k]
-            q = np.uint64(max(min(s, 2097151.0), 0.0)) if s >= 0.0 else np.uint64(0)
-            code |= _spread21(q) << np.uint64(k)
-        keys[i] = np.int64(code >> np.uint64(shift))
+        keys[i] = np.int64(_morton(xs[i, 0], xs[i, 1], xs[i, 2], lo, scale) >> np.uint64(shift))
 
 
 @njit(cache=True, fastmath=FMA, parallel=True)
@@ -486,12 +493,10 @@ def _centroid_codes(points, tets, lo, scale, codes, flip):
     same vertex reads, whether its signed volume is negative (``flip``)."""
     for t in prange(tets.shape[0]):
         a, b, c, d = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
-        code = np.uint64(0)
-        for k in range(3):
-            m = 0.25 * (((points[a, k] + points[b, k]) + points[c, k]) + points[d, k])
-            q = np.uint64(max(min((m - lo[k]) * scale[k], 2097151.0), 0.0))
-            code |= _spread21(q) << np.uint64(k)
-        codes[t] = code
+        m0 = 0.25 * (((points[a, 0] + points[b, 0]) + points[c, 0]) + points[d, 0])
+        m1 = 0.25 * (((points[a, 1] + points[b, 1]) + points[c, 1]) + points[d, 1])
+        m2 = 0.25 * (((points[a, 2] + points[b, 2]) + points[c, 2]) + points[d, 2])
+        codes[t] = _morton(m0, m1, m2, lo, scale)
         flip[t] = _triple(points, a, b, c, d) < 0.0
 
 
