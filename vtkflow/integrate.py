@@ -185,16 +185,12 @@ def _record(i, n, x0, x1, x2, t, v0, v1, v2, rec_x, rec_t, rec_v):
 BLOCK = 64
 
 
-@njit(cache=True, fastmath=FMA, nogil=True, _nrt=False)
+@njit(cache=True, fastmath=FMA, nogil=True, inline="always")
 def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh, field, frozen, cubic, params, scheme,
                  rec_x, rec_t, rec_v, k, cells, codes):
     """Advance particle ``i`` (a row of the state arrays, updated in place) by up to ``max_steps`` accepted
-    steps, recorded in row ``col`` of the record buffers; returns the number recorded.
-
-    Compiled without reference counting (``_nrt=False``: no arrays are made here, ``k``, ``cells`` and
-    ``codes`` are the stage work arrays): in a parallel loop, every reference to an array that all threads
-    share would cost an atomic update of its count, a full memory barrier on x86. The hot helpers it
-    inlines take and return scalars for the same reason."""
+    steps, recorded in row ``col`` of the record buffers; returns the number recorded. ``k``, ``cells`` and
+    ``codes`` are the stage work arrays. Inlined into :func:`_advance_block`."""
     min_step, max_growth, tol, rel_tol = params
     cc, aa, bb, ee, adaptive = scheme
     geom, nbr, conn, boxes, levels = mesh
@@ -338,6 +334,24 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
     return n
 
 
+@njit(cache=True, fastmath=FMA, nogil=True, _nrt=False)
+def _advance_block(lo, hi, rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, field, frozen, cubic, params,
+                   scheme, rec_x, rec_t, rec_v, counts, k, cells, codes):
+    """Advance the particles ``rows[lo:hi]`` one after the other (see :func:`_advance_one`), their records in
+    rows ``lo:hi`` of the buffers and their counts in ``counts[lo:hi]``.
+
+    One call per block of particles, not per particle: with a call per particle (its body not inlined),
+    passing the thirty-odd arrays and tuples at every call made the transient benchmark's kernel about
+    20 % slower (A/B in one process, bitwise the same paths). Compiled without reference counting
+    (``_nrt=False``: no arrays are made here): in a parallel loop, every reference to an array that all
+    threads share would cost an atomic update of its count, a full memory barrier on x86. The hot helpers
+    it inlines take and return scalars for the same reason."""
+    for j in range(lo, hi):
+        i = rows[j]
+        counts[j] = _advance_one(i, j, X, T, V, H, C, S, D, signs[i], t_end, step, max_steps, mesh, field, frozen,
+                                 cubic, params, scheme, rec_x, rec_t, rec_v, k, cells, codes)
+
+
 @njit(cache=True, parallel=True)
 def _advance_many(rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh, field, frozen, cubic, params, scheme,
                   rec_x, rec_t, rec_v, counts, nt):
@@ -354,10 +368,8 @@ def _advance_many(rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps, mesh
         if b >= blocks:
             continue
         k, cells, codes = np.empty((ns, 3)), np.empty(ns, np.int64), np.empty(ns, np.int64)
-        for j in range(b * BLOCK, min((b + 1) * BLOCK, n)):
-            i = rows[j]
-            counts[j] = _advance_one(i, j, X, T, V, H, C, S, D, signs[i], t_end, step, max_steps, mesh, field, frozen,
-                                     cubic, params, scheme, rec_x, rec_t, rec_v, k, cells, codes)
+        _advance_block(b * BLOCK, min((b + 1) * BLOCK, n), rows, X, T, V, H, C, S, D, signs, t_end, step, max_steps,
+                       mesh, field, frozen, cubic, params, scheme, rec_x, rec_t, rec_v, counts, k, cells, codes)
 
 
 @njit(cache=True, fastmath=FMA, parallel=True)
