@@ -406,20 +406,24 @@ def test_take_rows_is_fancy_indexing():
         assert got.dtype == ref.dtype and np.array_equal(got, ref)
 
 
-def test_put_columns_is_slice_assignment():
-    """``put_columns`` equals NumPy's ``table[:, col:col + k] = src`` (its twin) for 1-D and 2-D sources, and
-    refuses a source that does not fit."""
-    from vtkflow.kernels import put_columns
+def test_fill_table_is_hstack():
+    """``fill_table`` equals NumPy's ``np.hstack`` (its twin) with and without the slope columns, and refuses
+    arrays that do not fit the table."""
+    from vtkflow.kernels import fill_table
 
     rng = np.random.default_rng(12)
-    table, ref = np.full((500, 7), np.nan), np.full((500, 7), np.nan)
-    a, b = rng.normal(size=(500, 3)), rng.normal(size=500)
-    put_columns(table, 3, a)
-    put_columns(table, 6, b)
-    ref[:, 3:6], ref[:, 6] = a, b
-    np.testing.assert_array_equal(table, ref)
-    with pytest.raises(ValueError, match="cannot put"):
-        put_columns(table, 5, a)
+    u0, u1, d0, d1 = (rng.normal(size=(500, 3)) for _ in range(4))
+    h = rng.normal(size=500)
+    table = np.full((500, 7), np.nan)
+    fill_table(table, u0, u1, h)
+    np.testing.assert_array_equal(table, np.hstack([u0, u1, h[:, None]]))
+    table = np.full((500, 13), np.nan)
+    fill_table(table, u0, u1, h, d0, d1)
+    np.testing.assert_array_equal(table, np.hstack([u0, u1, d0, d1, h[:, None]]))
+    with pytest.raises(ValueError, match="cannot fill"):
+        fill_table(table, u0, u1, h)
+    with pytest.raises(ValueError, match="cannot fill"):
+        fill_table(np.empty((500, 7)), u0[:499], u1, h)
 
 
 def test_bounds_and_morton_bits():

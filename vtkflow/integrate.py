@@ -489,7 +489,8 @@ class RecordBuffers:
         """Remember the steps the particles of a call took (``counts``); a call whose particles mostly used
         the whole ``width`` suggests the full width next."""
         if len(counts):
-            self._recent = float(counts.mean()) if counts.mean() < 0.75 * width else float(self.width)
+            mean = float(counts.sum()) / len(counts)
+            self._recent = mean if mean < 0.75 * width else float(self.width)
 
     def take(self, n: int, slot: int = 0, width: int | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Buffers for ``n`` particles of ``width`` records each (default the full width) in ``slot`` (each

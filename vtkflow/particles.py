@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Callable, NamedTuple, Optional
 
 import numpy as np
 
-from .kernels import put_columns, shifted_order
+from .kernels import fill_table, shifted_order
 from .mesh import Mesh
 from .reuse import OutputPool
 
@@ -73,6 +73,10 @@ class Status(IntEnum):
     nan = 3  #: met a NaN velocity
     dropped = 4  #: release point outside the mesh; never released
     pending = 5  #: not yet released
+
+
+#: :attr:`Status.active` as a plain int (NumPy compares an array with it without converting an enum member).
+ACTIVE = int(Status.active)
 
 
 class Sample(NamedTuple):
@@ -132,13 +136,13 @@ class TimeField:
         the time slopes ``d0``, ``d1`` at them (same shape) the interpolation in time is cubic Hermite."""
         self.t0, self.t1 = float(t0), float(t1)
         self.cubic = d0 is not None and d1 is not None
-        cols = [u0, u1, d0, d1] if self.cubic else [u0, u1]
         # into memory of an earlier load that nothing refers to any more (the mesh keeps the last one: two
         # buffers take turns), not fresh memory at every snapshot pair
-        table = self.outputs.empty("snapshots", (self.mesh.n_points, 3 * len(cols) + 1))
-        for j, u in enumerate(cols):
-            put_columns(table, 3 * j, u)
-        put_columns(table, 3 * len(cols), self.mesh.point_size)
+        table = self.outputs.empty("snapshots", (self.mesh.n_points, 13 if self.cubic else 7))
+        if self.cubic:
+            fill_table(table, u0, u1, self.mesh.point_size, d0, d1)
+        else:
+            fill_table(table, u0, u1, self.mesh.point_size)
         self.mesh.set_point_data(table)
 
     def kernel_args(self, time: Optional[float] = None, floor: float = 0.0) -> tuple:
@@ -344,7 +348,7 @@ def advance(
     # each call in its own slot); without: no buffers, no chunks
     buffers = field.record_buffers() if record is not None else None
     for call in range(max_iterations):
-        active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
+        active = np.flatnonzero((state.status == ACTIVE) & (state.t < t_end))
         if active.size == 0:
             return
         # neighbours in memory work together (particles just released are located first, so that they too
