@@ -256,11 +256,13 @@ def main() -> None:
     # ------------------------------------------------------------------------------------- vtkflow
     t_prep, mesh = timed(lambda: Mesh(grid))
     field = TimeField(mesh)
-    # warm-up: load the numba kernels on four particles over a sliver of the first interval
-    field.load(times[0], snaps[0], times[1], snaps[1])
-    w = State.empty(4)
-    place(w, np.arange(4), seeds[:4], np.zeros(4), field)
-    advance(w, 1e-3 * times[1], field, args.step, lambda *a: None)
+    # warm-up: load (or compile) the numba kernels, linear and cubic in time, on four particles over a
+    # sliver of the first interval
+    for slopes in ((), (snaps[0], snaps[1])):
+        field.load(times[0], snaps[0], times[1], snaps[1], *slopes)
+        w = State.empty(4)
+        place(w, np.arange(4), seeds[:4], np.zeros(4), field)
+        advance(w, 1e-3 * times[1], field, args.step, lambda *a: None)
 
     def run_ours(cubic: bool = False):
         chunks: list[int] = []

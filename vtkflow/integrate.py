@@ -464,7 +464,10 @@ class RecordBuffers:
     A call need not use the whole width: :meth:`chunk` suggests one from the steps particles took per call
     lately, so that the records of calls with few steps per particle (pathlines between close snapshots)
     lie close together instead of one per ``width`` records (on the transient benchmark's three steps per
-    particle and snapshot interval, 8 wide ran 10-15 % faster than 64 wide).
+    particle and snapshot interval, 8 wide ran 10-15 % faster than 64 wide). Only the first call of each
+    advance is noted (:func:`vtkflow.particles.advance`): the few particles left for a second call take
+    few steps there, and noting them made the next interval's first call too narrow (4 wide on the
+    transient benchmark: a tenth of the particles needed a second call in every interval).
     """
 
     #: The narrowest chunk :meth:`chunk` suggests.
@@ -509,7 +512,7 @@ _NO_RECORDS = np.empty((0, 0, 3)), np.empty((0, 0)), np.empty((0, 0, 3))  # noth
 
 
 def advance_particles(rows, x, t, v, h, cell, status, dt, signs, t_end, step, max_steps, mesh, field, params,
-                      integrator="rk4", buffers=None, slot=None):
+                      integrator="rk4", buffers=None, slot=None, note=True):
     """Advance particles ``rows`` of the state arrays (``x``, ``t``, ``v``, ``h``, ``cell``, ``status``, ``dt``,
     ``signs``: one row per particle, updated in place, no copies) by up to ``max_steps`` steps.
 
@@ -519,7 +522,8 @@ def advance_particles(rows, x, t, v, h, cell, status, dt, signs, t_end, step, ma
     (``which``: their rows of the state arrays), arrays of the caller's own. With a ``slot`` as well, the
     records stay where the engine wrote them, in that slot of the buffers: returns ``(rows, counts, x, t,
     v)``, the ``counts[i]`` records of particle ``rows[i]`` in row ``i`` of ``x`` ``(n, max_steps, 3)``, ``t``
-    and ``v`` (views, valid until the slot is taken again). Without buffers, returns ``None``.
+    and ``v`` (views, valid until the slot is taken again). Without buffers, returns ``None``. ``note``: whether
+    the steps of this call inform the buffers' next :meth:`RecordBuffers.chunk`.
     """
     rows = np.ascontiguousarray(rows, dtype=np.int64)
     n = len(rows)
@@ -532,7 +536,8 @@ def advance_particles(rows, x, t, v, h, cell, status, dt, signs, t_end, step, ma
                   get_num_threads())
     if buffers is None:
         return None
-    buffers.note(counts, max_steps)
+    if note:
+        buffers.note(counts, max_steps)
     if slot is not None:
         return (rows, counts, *rec)
     first = np.zeros(n + 1, np.int64)

@@ -357,18 +357,19 @@ def advance(
         active = active[_by_region(state.cell[active], len(mesh[0]))]
         # the engine works on the state's own arrays, row by row
         got = advance_particles(active, state.x, state.t, state.v, state.h, state.cell, state.status, state.dt,
-                                signs, t_end, step, _chunk(buffers, runs), mesh, args, params, integrator, buffers,
-                                call if runs else None)
+                                signs, t_end, step, _chunk(buffers, runs, call), mesh, args, params, integrator,
+                                buffers, call if runs else None, note=call == 0)
         if got is not None and got[0].size:
             record(*got)
     raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} rounds")
 
 
-def _chunk(buffers: Optional[RecordBuffers], runs: bool) -> int:
-    """Most steps per particle in the next engine call (see :meth:`RecordBuffers.chunk`)."""
+def _chunk(buffers: Optional[RecordBuffers], runs: bool, call: int) -> int:
+    """Most steps per particle in engine call ``call`` of an advance: the first as wide as
+    :meth:`RecordBuffers.chunk` suggests, the few particles left for later calls the whole width."""
     if buffers is None:
         return 1 << 40
-    return buffers.width if runs else buffers.chunk()
+    return buffers.chunk() if call == 0 and not runs else buffers.width
 
 
 def _by_region(cells: np.ndarray, n_tets: int) -> np.ndarray:
