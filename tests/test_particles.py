@@ -142,6 +142,33 @@ def test_largest_speed_is_that_of_the_blended_field_at_the_points(cube):
     assert f.largest_speed(1.0) == pytest.approx(np.nanmax(np.linalg.norm(u0, axis=1)), rel=1e-14)
 
 
+@pytest.mark.parametrize("kind", ["tetra", "hexahedron"])
+@pytest.mark.parametrize("cubic", [False, True])
+def test_release_sample_equals_the_numpy_sampler(kind, cubic):
+    """``TimeField.release_sample`` (the engine's own sample, what ``place`` uses) against its twin, the NumPy
+    sampler ``TimeField.__call__``: velocity, cell size, inside and NaN stops at random points, some outside
+    the mesh and some in cells with a NaN vertex, on tetrahedra and on split hexahedra (added centre points).
+    Tolerance 1e-12: the same interpolation, summed in another order."""
+    mesh = Mesh(box_mesh((0, 0, 0), (1, 1, 1), (4, 3, 5), kind))
+    rng = np.random.default_rng(9)
+    u = [rng.normal(size=(mesh.n_points, 3)) for _ in range(4)]
+    u[0][7] = np.nan  # a NaN vertex in the earlier snapshot
+    f = TimeField(mesh)
+    f.load(1.0, u[0], 3.0, u[1], *((u[2], u[3]) if cubic else ()))
+    x = rng.uniform(-0.2, 1.2, (400, 3))
+    t = rng.uniform(1.0, 3.0, 400)
+    t[:50] = 3.0  # the later snapshot alone: the earlier one's NaN takes no part
+    got, want = f.release_sample(x, t), f(x, t)
+    np.testing.assert_array_equal(got.inside, want.inside)
+    assert 0 < got.inside.sum() < len(x)
+    ins = got.inside
+    np.testing.assert_array_equal(got.stop[ins], want.stop[ins])
+    assert (got.stop[ins] == Status.nan).any() and (got.stop[ins] == 0).any()
+    np.testing.assert_allclose(got.v[ins], want.v[ins], rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(got.h[ins], want.h[ins], rtol=1e-12)
+    np.testing.assert_array_equal(got.cell[ins] >= 0, True)
+
+
 def test_record_chunks_follow_the_steps_particles_take():
     """The record buffers suggest chunks of the smallest power of two at least twice the recent mean steps
     per particle (at least 4, at most the width), and the full width after a call that mostly filled it."""

@@ -28,7 +28,7 @@ from numba.extending import overload
 from .kernels import FMA, _bary, _locate, _prefetch_exit
 from .particles import Status
 
-__all__ = ["advance_particles", "find_cells", "place_runs", "largest_speed", "RecordBuffers", "TABLEAUS"]
+__all__ = ["advance_particles", "find_cells", "sample_at", "place_runs", "largest_speed", "RecordBuffers", "TABLEAUS"]
 
 # status values as plain ints for the kernels; OUTSIDE marks a sample outside the mesh
 ACTIVE, EXITED, STALLED, NAN = int(Status.active), int(Status.exited), int(Status.stalled), int(Status.nan)
@@ -386,6 +386,29 @@ def find_cells(rows, x, cell, mesh) -> None:
     containing them, through the box tree, as the engine itself would on their first step (-1 outside):
     with it, they can be ordered by region before their first step."""
     _find_cells(np.ascontiguousarray(rows, dtype=np.int64), x, cell, mesh)
+
+
+@njit(cache=True, fastmath=FMA, parallel=True)
+def _sample_at(X, T, C, mesh, field, cubic, V, H, codes):
+    for i in prange(X.shape[0]):
+        C[i], H[i], codes[i], _, V[i, 0], V[i, 1], V[i, 2] = _sample(X[i, 0], X[i, 1], X[i, 2], T[i], C[i], mesh, field,
+                                                                     1.0, OFF, cubic)
+
+
+def sample_at(x, t, cell, mesh, field):
+    """The velocity at points ``x`` and times ``t`` as the engine samples it (time-accurate mode), walking
+    from ``cell`` (a tetrahedron near each point, -1 for none: the box tree). Returns ``(v, h, code,
+    cell)``: velocity ``(N, 3)`` (zero where the code is not ``ACTIVE``), local cell size, the sample's stop
+    code (``ACTIVE``, ``NAN``, or ``OUTSIDE`` with cell -1) and the containing tetrahedron."""
+    x = np.ascontiguousarray(x, dtype=np.float64).reshape(-1, 3)
+    n = len(x)
+    t = np.ascontiguousarray(np.broadcast_to(np.asarray(t, dtype=np.float64), (n,)))
+    cell = np.array(cell, dtype=np.int64).reshape(n)  # a copy: the kernel writes the tetrahedra into it
+    values, t0, t1, _, time, floor, cubic = field
+    v, h, code = np.empty((n, 3)), np.empty(n), np.empty(n, np.int64)
+    _sample_at(x, t, cell, mesh, (values, float(t0), float(t1), float(time), float(floor)), ON if cubic else OFF,
+               v, h, code)
+    return v, h, code, cell
 
 
 @njit(cache=True, parallel=True)
