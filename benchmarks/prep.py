@@ -146,8 +146,10 @@ def main() -> None:
         rep.say(f"  {k:42s} {v:7.3f} s  {100 * v / total:5.1f} %  ({v / t_read:.2f} x read)")
 
     rep.add("preparation / read", t_prep, t_read, "s", goal="<= 1.0", note="fastest of the runs")
+    rep.add("preparation / read, medians (later runs)", float(np.median(preps[1:] or preps)),
+            float(np.median(reads[1:] or reads)), "s", note="the spread: fresh memory, huge pages")
     rep.add("preparation / read, first call in the process", preps[0], t_read, "s", goal="<= 1.0",
-            note="what a run pays (fresh memory: page faults)")
+            note="what a run pays: loading the compiled kernels, fresh memory")
     rep.add("preparation / read (jittered coordinates)", t_prep, t_jread, "s", goal="<= 1.0")
     for k, v in sorted(pieces.items(), key=lambda kv: -kv[1]):
         rep.add(f"  {k}", v, t_read, "s")
