@@ -253,11 +253,13 @@ class FrozenField:
         return self.field.outputs
 
     def velocity(self, x: np.ndarray) -> Sample:
-        """The velocity itself (not normalised) at ``x``."""
-        return self.field(x, np.full(len(x), self.time))
+        """The velocity itself (not normalised) at seeds ``x``, as the engine samples it
+        (:meth:`TimeField.release_sample`)."""
+        return self.field.release_sample(x, np.full(len(x), self.time))
 
     def __call__(self, x: np.ndarray, s: np.ndarray, idx: np.ndarray) -> Sample:
-        return self.tangent(self.velocity(x), idx)
+        # the NumPy sampler: the twin engine's
+        return self.tangent(self.field(x, np.full(len(x), self.time)), idx)
 
     def tangent(self, got: Sample, idx: np.ndarray) -> Sample:
         """The unit-tangent sample of particles ``idx`` from the velocity sampled at their points."""
