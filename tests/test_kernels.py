@@ -347,6 +347,39 @@ def test_cell_and_point_sizes_match_numpy():
     np.testing.assert_array_equal(ps, [1.0] * 6)
 
 
+def test_sizes_of_a_tetrahedral_mesh_come_from_the_ordering_pass():
+    """For a mesh of tetrahedra only, the decomposition's ordering pass also gives the cell and point sizes
+    (``orient_and_order(..., sizes=True)``, in place of a pass of their own): bitwise equal to
+    ``cell_sizes`` over the cells (its twin), a degenerate tetrahedron and a point that no tetrahedron uses
+    included, with one thread and with two; ``Mesh`` takes them for a tetrahedral mesh."""
+    from numba import get_num_threads, set_num_threads
+
+    from vtkflow.kernels import cell_sizes, orient_and_order
+
+    rng = np.random.default_rng(21)
+    pts = rng.normal(size=(300, 3))
+    tets = rng.integers(0, 299, (1000, 4))  # point 299 unused
+    tets[17] = 5  # all four corners at one point
+    want = cell_sizes(pts, np.arange(len(tets) + 1) * 4, tets.ravel())
+    was = get_num_threads()
+    try:
+        for threads in (1, was):
+            set_num_threads(threads)
+            got = orient_and_order(pts, tets, sizes=True)
+            np.testing.assert_array_equal(got[2], want[0])
+            np.testing.assert_array_equal(got[3], want[1])
+            plain = orient_and_order(pts, tets)
+            assert np.array_equal(plain[0], got[0]) and np.array_equal(plain[1], got[1])
+    finally:
+        set_num_threads(was)
+    assert want[0][17] == want[0][want[0] > 0].min() and want[1][299] == want[0][17]  # the floor
+    mesh = Mesh(box_mesh((0, 0, 0), (1, 2, 1), (4, 3, 5), "tetra"))
+    assert mesh.tetmesh.sizes is not None
+    ref = cell_sizes(mesh.points, mesh.offsets, mesh.connectivity)
+    assert np.array_equal(mesh.cell_size, ref[0]) and np.array_equal(mesh.point_size, ref[1])
+    assert Mesh(box_mesh((0, 0, 0), (1, 1, 1), (2, 2, 2), "hexahedron")).tetmesh.sizes is None
+
+
 def test_group_order_matches_stable_argsort():
     """The linear-time grouping equals NumPy's stable argsort (its twin), in one piece and, for long inputs,
     in parallel pieces (``kernels.SORT_PARALLEL``)."""

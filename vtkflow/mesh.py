@@ -67,9 +67,10 @@ class Mesh:
         self.offsets = vtk_to_numpy(cells.GetOffsetsArray()).astype(np.int64, copy=False)
         self.connectivity = vtk_to_numpy(cells.GetConnectivityArray()).astype(np.int64, copy=False)
         self.cell_types = cell_types(topo)
-        self.cell_size, self.point_size = self._cell_sizes()
         self._to_point: sp.csr_matrix | None = None
         self.tetmesh = decompose(self.points, self.offsets, self.connectivity, self.cell_types)
+        # a mesh of tetrahedra only has its sizes from the decomposition's pass over its cells
+        self.cell_size, self.point_size = self.tetmesh.sizes or self._cell_sizes()
         self.locator = Locator(self.tetmesh)
         self._values: np.ndarray | None = None
 
