@@ -508,12 +508,10 @@ def _centroid_codes(points, tets, lo, scale, codes, flip, cell_size, point_size,
                                0.25 * (((az + bz) + cz) + dz), lo, scale)
             flip[t] = _triple(points, a, b, c, d) < 0.0
             if sizes:
-                e0 = max(max(max(ax, bx), cx), dx) - min(min(min(ax, bx), cx), dx)
-                e1 = max(max(max(ay, by), cy), dy) - min(min(min(ay, by), cy), dy)
-                e2 = max(max(max(az, bz), cz), dz) - min(min(min(az, bz), cz), dz)
-                size = np.sqrt((e0 ** 2 + e1 ** 2 + e2 ** 2) * (1.0 / 3.0))
+                size = _box_size(max(max(max(ax, bx), cx), dx) - min(min(min(ax, bx), cx), dx),
+                                 max(max(max(ay, by), cy), dy) - min(min(min(ay, by), cy), dy),
+                                 max(max(max(az, bz), cz), dz) - min(min(min(az, bz), cz), dz), p, smallest)
                 cell_size[t] = size
-                _note_size(size, p, smallest)
                 for v in (a, b, c, d):
                     point_size[p, v] = min(point_size[p, v], size)
 
@@ -538,7 +536,7 @@ def orient_and_order(points: np.ndarray, tets: np.ndarray, sizes: bool = False) 
 
     With ``sizes``, also :func:`cell_sizes` of the tetrahedra taken as the cells (in the order of ``tets``),
     from the vertex reads of the same pass: ``(tets, order, cell_size, point_size)``. For a mesh of
-    tetrahedra only, this saves the size pass over its cells (7-8 ms of 30 on 1.2 M tetrahedra)."""
+    tetrahedra only, this saves the size pass over its cells (8-14 ms on 1.2 M tetrahedra)."""
     m = len(tets)
     index = np.int32 if len(points) < 2**31 else np.int64
     if m == 0:
@@ -655,10 +653,13 @@ def group_order(keys: np.ndarray, n_keys: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _note_size(size, p, smallest):
-    """Piece ``p``'s smallest positive size so far, with ``size``."""
+def _box_size(e0, e1, e2, p, smallest):
+    """The size of a cell whose bounding box has edges ``e``: its diagonal over sqrt(3); noted in piece
+    ``p``'s smallest positive size."""
+    size = np.sqrt((e0 ** 2 + e1 ** 2 + e2 ** 2) * (1.0 / 3.0))
     if size > 0.0:
         smallest[p] = min(smallest[p], size)
+    return size
 
 
 @njit(cache=True, parallel=True)
@@ -679,9 +680,8 @@ def _cell_sizes(points, offsets, conn, cell_size, point_size, smallest):
                 lo0, hi0 = min(lo0, x), max(hi0, x)
                 lo1, hi1 = min(lo1, y), max(hi1, y)
                 lo2, hi2 = min(lo2, z), max(hi2, z)
-            size = np.sqrt(((hi0 - lo0) ** 2 + (hi1 - lo1) ** 2 + (hi2 - lo2) ** 2) * (1.0 / 3.0))
+            size = _box_size(hi0 - lo0, hi1 - lo1, hi2 - lo2, p, smallest)
             cell_size[c] = size
-            _note_size(size, p, smallest)
             for k in range(offsets[c], offsets[c + 1]):
                 point_size[p, conn[k]] = min(point_size[p, conn[k]], size)
 

@@ -70,7 +70,8 @@ class Mesh:
         self._to_point: sp.csr_matrix | None = None
         self.tetmesh = decompose(self.points, self.offsets, self.connectivity, self.cell_types)
         # a mesh of tetrahedra only has its sizes from the decomposition's pass over its cells
-        self.cell_size, self.point_size = self.tetmesh.sizes or self._cell_sizes()
+        sizes = self.tetmesh.sizes
+        self.cell_size, self.point_size = sizes if sizes is not None else self._cell_sizes()
         self.locator = Locator(self.tetmesh)
         self._values: np.ndarray | None = None
 
