@@ -342,7 +342,7 @@ def _advance_block(lo, hi, rows, X, T, V, H, C, S, D, signs, t_end, step, max_st
 
     One call per block of particles, not per particle: with a call per particle (its body not inlined),
     passing the thirty-odd arrays and tuples at every call made the transient benchmark's kernel about
-    20 % slower (A/B in one process, bitwise the same paths). Compiled without reference counting
+    20 % slower (A/B in one process; the paths agree to round-off). Compiled without reference counting
     (``_nrt=False``: no arrays are made here): in a parallel loop, every reference to an array that all
     threads share would cost an atomic update of its count, a full memory barrier on x86. The hot helpers
     it inlines take and return scalars for the same reason."""
