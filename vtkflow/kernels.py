@@ -536,7 +536,7 @@ def orient_and_order(points: np.ndarray, tets: np.ndarray, sizes: bool = False) 
 
     With ``sizes``, also :func:`cell_sizes` of the tetrahedra taken as the cells (in the order of ``tets``),
     from the vertex reads of the same pass: ``(tets, order, cell_size, point_size)``. For a mesh of
-    tetrahedra only, this saves the size pass over its cells (8-14 ms on 1.2 M tetrahedra)."""
+    tetrahedra only, this saves the size pass over its cells (5-14 ms on 1.2 M tetrahedra)."""
     m = len(tets)
     index = np.int32 if len(points) < 2**31 else np.int64
     if m == 0:
