@@ -75,10 +75,6 @@ class Status(IntEnum):
     pending = 5  #: not yet released
 
 
-#: :attr:`Status.active` as a plain int (NumPy compares an array with it without converting an enum member).
-ACTIVE = int(Status.active)
-
-
 class Sample(NamedTuple):
     """Velocity sampled at points: ``v (N, 3)``, local cell size ``h (N,)``, ``inside (N,)``, ``stop (N,)``.
 
@@ -351,7 +347,7 @@ def advance(
     if not numba_engine:
         advance_numpy(state, t_end, field, step, record, max_iterations)
         return
-    from .integrate import advance_particles, find_cells
+    from .integrate import ACTIVE, advance_particles, find_cells  # ACTIVE: a plain int, faster to compare with
 
     mesh, args = field.kernel_args()
     sign = getattr(field, "sign", None)
