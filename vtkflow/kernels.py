@@ -495,9 +495,10 @@ def _centroid_codes(points, tets, lo, scale, codes, flip, cell_size, point_size,
     n, n_pieces = tets.shape[0], point_size.shape[0]
     sizes = cell_size.shape[0] > 0
     for p in prange(n_pieces):
+        row = point_size[p]
+        small = np.inf
         if sizes:
-            point_size[p, :] = np.inf
-            smallest[p] = np.inf
+            row[:] = np.inf
         for t in range(p * n // n_pieces, (p + 1) * n // n_pieces):
             a, b, c, d = tets[t, 0], tets[t, 1], tets[t, 2], tets[t, 3]
             ax, ay, az = points[a, 0], points[a, 1], points[a, 2]
@@ -510,10 +511,16 @@ def _centroid_codes(points, tets, lo, scale, codes, flip, cell_size, point_size,
             if sizes:
                 size = _box_size(max(max(max(ax, bx), cx), dx) - min(min(min(ax, bx), cx), dx),
                                  max(max(max(ay, by), cy), dy) - min(min(min(ay, by), cy), dy),
-                                 max(max(max(az, bz), cz), dz) - min(min(min(az, bz), cz), dz), p, smallest)
+                                 max(max(max(az, bz), cz), dz) - min(min(min(az, bz), cz), dz))
+                if size > 0.0:
+                    small = min(small, size)
                 cell_size[t] = size
-                for v in (a, b, c, d):
-                    point_size[p, v] = min(point_size[p, v], size)
+                _lower(row, a, size)
+                _lower(row, b, size)
+                _lower(row, c, size)
+                _lower(row, d, size)
+        if sizes:
+            smallest[p] = small
 
 
 @njit(cache=True, parallel=True)
@@ -653,13 +660,16 @@ def group_order(keys: np.ndarray, n_keys: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _box_size(e0, e1, e2, p, smallest):
-    """The size of a cell whose bounding box has edges ``e``: its diagonal over sqrt(3); noted in piece
-    ``p``'s smallest positive size."""
-    size = np.sqrt((e0 ** 2 + e1 ** 2 + e2 ** 2) * (1.0 / 3.0))
-    if size > 0.0:
-        smallest[p] = min(smallest[p], size)
-    return size
+def _box_size(e0, e1, e2):
+    """The size of a cell whose bounding box has edges ``e``: its diagonal over sqrt(3)."""
+    return np.sqrt((e0 ** 2 + e1 ** 2 + e2 ** 2) * (1.0 / 3.0))
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _lower(row, v, size):
+    """``row[v] = min(row[v], size)``, stored only when it lowers (most visits do not: fewer stores)."""
+    if size < row[v]:
+        row[v] = size
 
 
 @njit(cache=True, parallel=True)
@@ -669,8 +679,9 @@ def _cell_sizes(points, offsets, conn, cell_size, point_size, smallest):
     ``smallest[p]`` the smallest positive size); :func:`_size_floor` then reduces them."""
     n, n_pieces = offsets.shape[0] - 1, point_size.shape[0]
     for p in prange(n_pieces):
-        point_size[p, :] = np.inf
-        smallest[p] = np.inf
+        row = point_size[p]  # one view per piece
+        row[:] = np.inf
+        small = np.inf  # in a register, not in smallest[p]: no chain through memory
         for c in range(p * n // n_pieces, (p + 1) * n // n_pieces):
             lo0 = lo1 = lo2 = np.inf
             hi0 = hi1 = hi2 = -np.inf
@@ -680,10 +691,13 @@ def _cell_sizes(points, offsets, conn, cell_size, point_size, smallest):
                 lo0, hi0 = min(lo0, x), max(hi0, x)
                 lo1, hi1 = min(lo1, y), max(hi1, y)
                 lo2, hi2 = min(lo2, z), max(hi2, z)
-            size = _box_size(hi0 - lo0, hi1 - lo1, hi2 - lo2, p, smallest)
+            size = _box_size(hi0 - lo0, hi1 - lo1, hi2 - lo2)
+            if size > 0.0:
+                small = min(small, size)
             cell_size[c] = size
             for k in range(offsets[c], offsets[c + 1]):
-                point_size[p, conn[k]] = min(point_size[p, conn[k]], size)
+                _lower(row, conn[k], size)
+        smallest[p] = small
 
 
 @njit(cache=True, parallel=True)
