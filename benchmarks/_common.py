@@ -187,6 +187,20 @@ def add_common_args(ap: Any) -> None:
     ap.add_argument("--threads", type=int, default=THREADS, help="threads on each side (default 2)")
 
 
+def caches() -> str:
+    """The CPU's data caches as Linux lists them (``L1 48K, L2 2048K, L3 491520K``), or '' where it does not:
+    the ratios against VTK move with them (the last-level cache decides whether a mesh's records fit)."""
+    found = {}
+    for d in sorted(Path("/sys/devices/system/cpu/cpu0/cache").glob("index*")):
+        try:
+            kind, level, size = ((d / f).read_text().strip() for f in ("type", "level", "size"))
+        except OSError:
+            continue
+        if kind in ("Data", "Unified"):
+            found[f"L{level}"] = size
+    return ", ".join(f"{k} {v}" for k, v in sorted(found.items()))
+
+
 def machine_line() -> str:
     import platform
 
@@ -200,5 +214,7 @@ def machine_line() -> str:
         vtk_version = vtkVersion.GetVTKVersion()
     except Exception:  # pragma: no cover
         vtk_version = getattr(vtkmodules, "__version__", "?")
-    return (f"{platform.node()} {platform.machine()} {os.cpu_count()} CPUs; Python {platform.python_version()}, "
+    cache = caches()
+    return (f"{platform.node()} {platform.machine()} {os.cpu_count()} CPUs{' (' + cache + ')' if cache else ''}; "
+            f"Python {platform.python_version()}, "
             f"NumPy {np.__version__}, numba {numba.__version__}, SciPy {scipy.__version__}, VTK {vtk_version}")
