@@ -512,8 +512,7 @@ def _centroid_codes(points, tets, lo, scale, codes, flip, cell_size, point_size,
                 size = _box_size(max(max(max(ax, bx), cx), dx) - min(min(min(ax, bx), cx), dx),
                                  max(max(max(ay, by), cy), dy) - min(min(min(ay, by), cy), dy),
                                  max(max(max(az, bz), cz), dz) - min(min(min(az, bz), cz), dz))
-                if size > 0.0:
-                    small = min(small, size)
+                small = _smallest_positive(small, size)
                 cell_size[t] = size
                 _lower(row, a, size)
                 _lower(row, b, size)
@@ -666,6 +665,13 @@ def _box_size(e0, e1, e2):
 
 
 @njit(cache=True, nogil=True, inline="always")
+def _smallest_positive(small, size):
+    """``small`` lowered to ``size`` where ``size`` is positive: the size passes' floor (kept in a local
+    variable, not in an array element: no chain through memory from one cell to the next)."""
+    return min(small, size) if size > 0.0 else small
+
+
+@njit(cache=True, nogil=True, inline="always")
 def _lower(row, v, size):
     """``row[v] = min(row[v], size)``, stored only when it lowers (most visits do not: fewer stores)."""
     if size < row[v]:
@@ -681,7 +687,7 @@ def _cell_sizes(points, offsets, conn, cell_size, point_size, smallest):
     for p in prange(n_pieces):
         row = point_size[p]  # one view per piece
         row[:] = np.inf
-        small = np.inf  # in a register, not in smallest[p]: no chain through memory
+        small = np.inf
         for c in range(p * n // n_pieces, (p + 1) * n // n_pieces):
             lo0 = lo1 = lo2 = np.inf
             hi0 = hi1 = hi2 = -np.inf
@@ -692,8 +698,7 @@ def _cell_sizes(points, offsets, conn, cell_size, point_size, smallest):
                 lo1, hi1 = min(lo1, y), max(hi1, y)
                 lo2, hi2 = min(lo2, z), max(hi2, z)
             size = _box_size(hi0 - lo0, hi1 - lo1, hi2 - lo2)
-            if size > 0.0:
-                small = min(small, size)
+            small = _smallest_positive(small, size)
             cell_size[c] = size
             for k in range(offsets[c], offsets[c + 1]):
                 _lower(row, conn[k], size)
