@@ -134,11 +134,9 @@ class TimeField:
         self.cubic = d0 is not None and d1 is not None
         # into memory of an earlier load that nothing refers to any more (the mesh keeps the last one: two
         # buffers take turns), not fresh memory at every snapshot pair
-        table = self.outputs.empty("snapshots", (self.mesh.n_points, 13 if self.cubic else 7))
-        if self.cubic:
-            fill_table(table, u0, u1, self.mesh.point_size, d0, d1)
-        else:
-            fill_table(table, u0, u1, self.mesh.point_size)
+        slopes = (d0, d1) if self.cubic else ()
+        table = self.outputs.empty("snapshots", (self.mesh.n_points, 3 * (2 + len(slopes)) + 1))
+        fill_table(table, u0, u1, self.mesh.point_size, *slopes)
         self.mesh.set_point_data(table)
 
     def kernel_args(self, time: Optional[float] = None, floor: float = 0.0) -> tuple:
