@@ -277,11 +277,14 @@ def main() -> None:
         t0 = time.perf_counter()
         for k in range(len(times) - 1):
             tl = time.perf_counter()
-            if cubic:  # cubic Hermite in time, slopes from the neighbouring snapshots (vtkflow's option)
-                slope = lambda j: time_slopes(times, j, snaps.__getitem__)  # noqa: E731
-                field.load(times[k], snaps[k], times[k + 1], snaps[k + 1], slope(k), slope(k + 1))
+            # as vtkflow's run loads the series: both snapshots of the first interval, then the next one only
+            # (the later snapshot becomes the earlier); cubic Hermite in time (vtkflow's option) with the
+            # slopes from the neighbouring snapshots
+            slope = (lambda j: time_slopes(times, j, snaps.__getitem__)) if cubic else (lambda j: None)  # noqa: E731
+            if k == 0:
+                field.load(times[0], snaps[0], times[1], snaps[1], *((slope(0), slope(1)) if cubic else ()))
             else:
-                field.load(times[k], snaps[k], times[k + 1], snaps[k + 1])
+                field.shift(times[k + 1], snaps[k + 1], slope(k + 1))
             t_load += time.perf_counter() - tl
             if k == 0:
                 place(state, np.arange(N), seeds, np.zeros(N), field)

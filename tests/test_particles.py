@@ -338,6 +338,66 @@ def test_snapshot_loads_reuse_memory_but_never_a_table_still_held(cube):
     assert cube.values.__array_interface__["data"][0] == a  # memory reused once let go
 
 
+@pytest.mark.parametrize("kind", ["tetra", "hexahedron"])
+@pytest.mark.parametrize("cubic", [False, True])
+def test_shift_gives_the_field_that_load_gives(kind, cubic):
+    """``TimeField.shift`` (only the new snapshot written, into the expired one's columns, which swaps the
+    blocks at every shift) against ``load`` of the same pair, after one and after two shifts (both orders
+    of the blocks): the engine's sample, the NumPy sampler, the largest speed and advanced particles, on
+    tetrahedra and on split hexahedra (added centre points). ``load`` is the reference (itself checked
+    against closed forms in test_time_interpolation.py). Tolerance 1e-12: the same interpolation with the
+    weights taken from the other end of the interval (round-off)."""
+    grid = box_mesh((0, 0, 0), (1, 1, 1), (4, 3, 5), kind)
+    mesh_a, mesh_b = Mesh(grid), Mesh(grid)
+    rng = np.random.default_rng(3)
+    times = [0.0, 0.5, 1.25, 2.0]
+    u = [rng.normal(size=(mesh_a.n_points, 3)) + [2.0, 0.0, 0.0] for _ in times]
+    d = [rng.normal(size=(mesh_a.n_points, 3)) for _ in times]
+    slope = (lambda k: d[k]) if cubic else (lambda k: None)  # noqa: E731
+    pair = (lambda k: (d[k], d[k + 1])) if cubic else (lambda k: ())  # noqa: E731
+    shifted, loaded = TimeField(mesh_a), TimeField(mesh_b)
+    shifted.load(times[0], u[0], times[1], u[1], *pair(0))
+    x = rng.uniform(0.0, 1.0, (300, 3))
+    for k in (1, 2):
+        shifted.shift(times[k + 1], u[k + 1], slope(k + 1))
+        loaded.load(times[k], u[k], times[k + 1], u[k + 1], *pair(k))
+        assert (shifted.t0, shifted.t1) == (loaded.t0, loaded.t1)
+        assert shifted.column_times() == ((times[k + 1], times[k]) if k == 1 else (times[k], times[k + 1]))
+        t = rng.uniform(times[k], times[k + 1], len(x))
+        t[:20] = times[k]  # the ends of the interval: one block alone
+        t[20:40] = times[k + 1]
+        for got, want in ((shifted.release_sample(x, t), loaded.release_sample(x, t)), (shifted(x, t), loaded(x, t))):
+            np.testing.assert_allclose(got.v, want.v, rtol=1e-12, atol=1e-12)
+            np.testing.assert_array_equal(got.h, want.h)
+        mid = 0.5 * (times[k] + times[k + 1])
+        assert shifted.largest_speed(mid) == pytest.approx(loaded.largest_speed(mid), rel=1e-12)
+        ends = []
+        for f in (shifted, loaded):
+            s = State.empty(len(x))
+            place(s, np.arange(len(x)), x, np.full(len(x), times[k]), f)
+            advance(s, times[k + 1], f, 0.25)
+            ends.append(s.x.copy())
+        np.testing.assert_allclose(ends[0], ends[1], atol=1e-12)
+
+
+def test_shift_refuses_what_it_cannot_continue(cube):
+    """``shift`` needs a loaded pair, a later time, and a slope exactly when the interpolation is cubic."""
+    u = np.ones((cube.n_points, 3))
+    with pytest.raises(ValueError, match="needs a load first"):
+        TimeField(cube).shift(1.0, u)
+    f = uniform_field(cube, (1.0, 0.0, 0.0), t0=0.0, t1=1.0)
+    with pytest.raises(ValueError, match="must follow"):
+        f.shift(1.0, u)
+    with pytest.raises(ValueError, match="has no place"):
+        f.shift(2.0, u, u)
+    f.load(0.0, u, 1.0, u, u, u)
+    with pytest.raises(ValueError, match="is needed"):
+        f.shift(2.0, u)
+    cube.set_point_data(np.zeros((cube.n_points, 13)))  # the mesh's point data replaced behind the field
+    with pytest.raises(ValueError, match="needs a load first"):
+        f.shift(2.0, u, u)
+
+
 def test_output_pool_lends_a_buffer_only_when_nothing_made_from_it_is_alive():
     from vtkflow._vtk import numpy_to_vtk, vtk_to_numpy
     from vtkflow.reuse import OutputPool

@@ -22,7 +22,7 @@ from numba.extending import intrinsic
 from .errors import InputError
 from .tetmesh import TREE_FANOUT, TREE_LEAF, BoxTree, TetMesh, morton_bits, tree_levels, tree_pad
 
-__all__ = ["Locator", "group_order", "shifted_order", "take_rows", "fill_table", "bounds", "orient_and_order", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK", "FMA"]
+__all__ = ["Locator", "group_order", "shifted_order", "take_rows", "fill_table", "fill_columns", "bounds", "orient_and_order", "cell_sizes", "neighbours", "tet_inverses", "tet_geometry", "BARY_TOL", "MAX_WALK", "FMA"]
 
 #: A point is in a tetrahedron when every barycentric coordinate is >= -BARY_TOL (round-off scale:
 #: points on faces, edges and vertices are inside; points a relative 1e-12 beyond are not).
@@ -654,6 +654,22 @@ def fill_table(table: np.ndarray, u0: np.ndarray, u1: np.ndarray, h: np.ndarray,
     none = np.empty((0, 3))
     _fill_table(table, v2[0], v2[1], v2[2] if len(v2) > 2 else none, v2[3] if len(v2) > 2 else none,
                 np.ascontiguousarray(h, dtype=np.float64))
+
+
+@njit(cache=True, parallel=True)
+def _fill_columns(table, col, u):
+    for i in prange(u.shape[0]):
+        for c in range(u.shape[1]):
+            table[i, col + c] = u[i, c]
+
+
+def fill_columns(table: np.ndarray, col: int, u: np.ndarray) -> None:
+    """``table[:len(u), col:col + k] = u`` for ``u`` ``(n, k)``, in one parallel pass (as :func:`fill_table`:
+    NumPy copies narrow column blocks of long tables slowly)."""
+    u = np.ascontiguousarray(u, dtype=np.float64).reshape(len(u), -1)
+    if u.shape[0] > table.shape[0] or not 0 <= col <= table.shape[1] - u.shape[1]:
+        raise ValueError(f"cannot put {u.shape} values in columns {col}.. of a {table.shape} table")
+    _fill_columns(table, int(col), u)
 
 
 def shifted_order(values: np.ndarray, shift: int, top: int) -> np.ndarray:

@@ -22,7 +22,7 @@ import scipy.sparse as sp
 
 from . import _vtk
 from ._vtk import vtk_to_numpy
-from .kernels import Locator, cell_sizes
+from .kernels import Locator, cell_sizes, fill_columns
 from .tetmesh import decompose
 
 __all__ = ["Mesh", "CELL_TYPE_NAMES", "cell_types"]
@@ -126,6 +126,15 @@ class Mesh:
         """Set the point array (``(n_points, k)``) that :meth:`sample` interpolates."""
         data = np.asarray(data, dtype=np.float64).reshape(self.n_points, -1)
         self._values = np.ascontiguousarray(self.tetmesh.extend(data))
+
+    def set_point_columns(self, col: int, data: np.ndarray) -> None:
+        """Overwrite columns ``col, col + 1, ..`` of the point array set by :meth:`set_point_data`, in place,
+        with ``data`` (``(n_points, k)``; extended to the decomposition's added points)."""
+        data = np.asarray(data, dtype=np.float64).reshape(self.n_points, -1)
+        fill_columns(self.values, col, data)
+        centres = self.tetmesh.centres
+        if centres.shape[0]:
+            self._values[self.n_points:, col:col + data.shape[1]] = np.asarray(centres @ data)
 
     @property
     def values(self) -> np.ndarray:

@@ -166,16 +166,23 @@ def stream(series: Series, tracers: Sequence[Any], emit: Callable[[str], Callabl
         t0, t1 = float(times[k]), float(times[k1])
         if k > 0 and t0 >= last_needed:  # every window has ended: later snapshots are not read
             break
-        u0, u1 = series.velocity(k), series.velocity(k1)
-        for j, u in ((k, u0), (k1, u1)):
+        u1 = series.velocity(k1)
+        # after the first interval the field keeps the earlier snapshot (shift): each one is read and checked once
+        fresh = [(k, series.velocity(k)), (k1, u1)] if k == 0 else [(k1, u1)]
+        for j, u in fresh:
             n_nan = int(np.count_nonzero(~np.isfinite(u).all(axis=1)))
             if n_nan:
                 nan_files[series.snapshots[j].label] = n_nan
         snapshots_to(k)
-        if cubic and k1 > k:
-            field.load(t0, u0, t1, u1, time_slopes(times, k, series.velocity), time_slopes(times, k1, series.velocity))
-        else:
-            field.load(t0, u0, t1, u1)
+        slopes = cubic and k1 > k
+        if k == 0:
+            u0 = fresh[0][1]
+            if slopes:
+                field.load(t0, u0, t1, u1, time_slopes(times, k, series.velocity), time_slopes(times, k1, series.velocity))
+            else:
+                field.load(t0, u0, t1, u1)
+        else:  # the later snapshot becomes the earlier one: only the new one is written
+            field.shift(t1, u1, time_slopes(times, k1, series.velocity) if slopes else None)
         for tracer in tracers:
             tracer.interval(field, t0, t1, k == 0, emits[tracer.name])
         snapshots_to(k1)
