@@ -241,8 +241,8 @@ def _piece_starts(counts, start):
     """Bucket bounds from per-piece counts ``(pieces, buckets)``; ``counts`` becomes each piece's first place
     in each bucket (pieces in order within a bucket, so every bucket lists its entries in input order)."""
     start[0] = 0
+    at = 0  # the running total in a register, not read back from ``start`` (12k buckets: 8 us, was 24 us)
     for b in range(counts.shape[1]):
-        at = start[b]
         for p in range(counts.shape[0]):
             n = counts[p, b]
             counts[p, b] = at
