@@ -398,6 +398,56 @@ def test_shift_refuses_what_it_cannot_continue(cube):
         f.shift(2.0, u, u)
 
 
+def test_output_pool_lends_the_smallest_free_buffer_and_keeps_as_many_as_asked():
+    from vtkflow.reuse import OutputPool
+
+    def address(x):
+        return x.__array_interface__["data"][0]
+
+    pool = OutputPool()
+    held = [pool.empty("r", n, keep=4) for n in (400, 100, 200)]
+    sizes = {address(a): len(a) for a in held}
+    del held
+    got = pool.empty("r", 150, keep=4)  # 200 is the smallest of the free buffers that hold 150
+    assert sizes[address(got)] == 200
+    more = [pool.empty("r", 50, keep=4) for _ in range(3)]  # 100, 400, then a fourth buffer
+    assert [sizes.get(address(a)) for a in more] == [100, 400, None]
+    extra = pool.empty("r", 50, keep=4)  # four kept, all in use: the oldest is let go, new memory
+    assert address(extra) not in {address(a) for a in (got, *more)}
+    assert len(pool._buffers["r"]) == 4
+
+
+def test_pathline_records_are_never_overwritten_while_held_and_reused_once_let_go(cube, monkeypatch):
+    """The compacted records ``advance`` hands a recorder come from the field's pool (every size pooled
+    here): a recorder that keeps every chunk finds each as it was handed over after later intervals; once it
+    drops them, the next run's chunks reuse their memory."""
+    from vtkflow import integrate
+
+    monkeypatch.setattr(integrate, "RECORDS_POOLED", 0)
+    f = uniform_field(cube, (0.3, 0.1, 0.0), (0.1, 0.3, 0.0), 0.0, 1.0)
+    x0 = np.random.default_rng(4).uniform(0.1, 0.5, (200, 3))
+
+    def run():
+        chunks = []
+        s = State.empty(len(x0))
+        place(s, np.arange(len(x0)), x0, np.zeros(len(x0)), f)
+        for k in range(1, 5):
+            advance(s, 0.25 * k, f, 0.25, lambda *c: chunks.append((c, [a.copy() for a in c])))
+        return chunks
+
+    chunks = run()
+    assert len(chunks) >= 4
+    for held, copy in chunks:
+        for a, b in zip(held, copy):
+            np.testing.assert_array_equal(a, b)
+    pooled = {k: len(v) for k, v in f.outputs._buffers.items() if k.startswith("records.")}
+    assert set(pooled) == {"records.which", "records.x", "records.t", "records.v"}
+    del chunks, held, a, b
+    again = run()
+    assert all(any(np.shares_memory(c[1], b) for b in f.outputs._buffers["records.x"]) for c, _ in again)
+    assert {k: len(f.outputs._buffers[k]) for k in pooled} == pooled  # lent again: no new buffers
+
+
 def test_output_pool_lends_a_buffer_only_when_nothing_made_from_it_is_alive():
     from vtkflow._vtk import numpy_to_vtk, vtk_to_numpy
     from vtkflow.reuse import OutputPool

@@ -315,7 +315,8 @@ class State:
 
 
 #: ``record(idx, x, t, v)`` after accepted steps: each particle's records in time order (interleaved with other
-#: particles'); the arrays are the recorder's to keep (never reused).
+#: particles'); the arrays are the recorder's to keep (their memory is lent again only once nothing refers to
+#: them: the field's :class:`vtkflow.reuse.OutputPool`).
 Recorder = Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], None]
 
 
@@ -391,7 +392,7 @@ def advance(
         # the engine works on the state's own arrays, row by row
         got = advance_particles(active, state.x, state.t, state.v, state.h, state.cell, state.status, state.dt,
                                 signs, t_end, step, _chunk(buffers, runs, call), mesh, args, params, integrator,
-                                buffers, call if runs else None, note=call == 0)
+                                buffers, call if runs else None, note=call == 0, pool=getattr(field, "outputs", None))
         if got is not None and got[0].size:
             record(*got)
     raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} rounds")

@@ -30,8 +30,9 @@ class OutputPool:
     under ``name`` that is large enough and from which no array is still referenced anywhere (every NumPy
     view holds a reference to its buffer, and so does a VTK array made from it without a copy); otherwise
     a view of a new buffer, which takes the place of a free one that was too small, or of the oldest one
-    (which lives on as long as its views do). Memory held: up to :data:`KEEP` of the largest outputs asked
-    for under each name, until the pool is dropped.
+    (which lives on as long as its views do). Memory held: up to ``keep`` (default :data:`KEEP`) of the
+    largest outputs asked for under each name, until the pool is dropped; no more buffers than callers
+    once held at the same time.
 
     Examples
     --------
@@ -63,21 +64,25 @@ class OutputPool:
         """Whether a buffer is kept under ``name`` from which no array is alive."""
         return bool(self._free(name))
 
-    def empty(self, name: str, shape: int | tuple[int, ...], dtype: np.dtype | type = np.float64) -> np.ndarray:
-        """An uninitialised array (see the class notes)."""
+    def empty(self, name: str, shape: int | tuple[int, ...], dtype: np.dtype | type = np.float64,
+              keep: int = KEEP) -> np.ndarray:
+        """An uninitialised array (see the class notes): a view of the smallest free buffer of ``name`` that
+        holds it, else of a new one; up to ``keep`` buffers are kept under ``name`` (more for outputs that
+        callers hold many of at a time, such as the pathline records of every interval)."""
         shape = (int(shape),) if np.ndim(shape) == 0 else tuple(int(s) for s in shape)
         n = int(np.prod(shape))
         dtype = np.dtype(dtype)
         kept = self._buffers.setdefault(name, [])
         free = self._free(name)
-        for i in free:
-            if kept[i].dtype == dtype and kept[i].size >= n:
-                return kept[i][:n].reshape(shape)
+        fits = [i for i in free if kept[i].dtype == dtype and kept[i].size >= n]
+        if fits:
+            best = min(fits, key=lambda i: kept[i].size)
+            return kept[best][:n].reshape(shape)
         new = np.empty(n + int(SLACK * n), dtype)
         if free:
             kept[free[0]] = new
         else:
-            if len(kept) >= KEEP:
+            if len(kept) >= keep:
                 kept.pop(0)
             kept.append(new)
         return new[:n].reshape(shape)
