@@ -55,8 +55,10 @@ BISECTIONS = 40
 STALL_SPEED = 1e-6
 #: The adaptive scheme's default local error per step, as a fraction of the local cell size.
 DEFAULT_RTOL = 1e-3
-#: Most accepted steps per particle per call of the numba engine (its record buffers are this wide).
-CHUNK_STEPS = 64
+#: Most accepted steps per particle per call of the numba engine (its record buffers are this wide). Streamline
+#: calls use the whole width: 128 in place of 64 takes most of the steady benchmark's streamlines (about 115
+#: steps) in one call, not two, and its trace ran 2 % faster; pathline calls use as much as particles need.
+CHUNK_STEPS = 128
 #: A step is redone when the speed met along it exceeds the one it was sized for by this factor.
 MAX_GROWTH = 2.0
 #: Guard against a runaway loop in one call of :func:`advance` (every iteration advances, shortens or
