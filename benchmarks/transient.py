@@ -4,10 +4,13 @@ Case: the unit cube cut into ``n**3`` cubes of 5 tetrahedra (n = 34: 196,520 tet
 [0, 1] of an unsteady ABC flow (``_common.abc_unsteady``: the coefficients vary over half a period of the
 window); 10,000 particles released at t = 0, uniformly in [0.3, 0.7]^3, followed to t = 1.
 
-* vtkflow: ``Mesh(grid)`` (timed apart), then a ``TimeField`` loaded interval by interval with the two
-  bracketing snapshots (as ``run.run_recipe`` streams them) and ``particles.advance`` (RK4, a quarter cell
-  per step) with a recorder that keeps every vertex, as pathlines need; a second vtkflow run interpolates
-  in time by cubic Hermite (``TimeField.load`` with the slopes of ``particles.time_slopes``);
+* vtkflow: ``Mesh(grid)`` (timed apart), then a ``TimeField`` loaded with the first two snapshots and moved
+  on one snapshot per interval (``TimeField.shift``, as ``run.run_recipe`` streams them) and
+  ``particles.advance`` (RK4, a quarter cell per step) with a recorder that keeps every vertex, as pathlines
+  need; a second vtkflow run interpolates in time by cubic Hermite (with the slopes of
+  ``particles.time_slopes``). A run keeps its records until it ends, like a pathline history until it
+  joins them; later runs reuse that memory once it is let go (the field's ``OutputPool``), the first run
+  of the process pays its page faults (its time is in the log line of the runs);
 * VTK: ``vtkParticleTracer`` fed by a small ``VTKPythonAlgorithmBase`` source that announces the snapshot
   times (``TIME_STEPS``) and hands out the requested snapshot (precomputed, so the source costs nothing;
   its time is measured and subtracted anyway), with the mesh declared static, RK4, seeds declared static,
