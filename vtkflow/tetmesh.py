@@ -25,7 +25,7 @@ import scipy.sparse as sp
 
 from .errors import InputError
 
-__all__ = ["TetMesh", "decompose", "orient_and_order_numpy", "morton_order", "split_wedges", "face_neighbours", "BoxTree", "box_tree", "tree_levels", "tree_pad"]
+__all__ = ["TetMesh", "MortonIndex", "decompose", "orient_and_order_numpy", "morton_order", "split_wedges", "face_neighbours", "BoxTree", "box_tree", "tree_levels", "tree_pad"]
 
 TETRA, VOXEL, HEXAHEDRON, WEDGE, PYRAMID = 10, 11, 12, 13, 14
 #: Cells below three dimensions (vertex, poly-vertex, line, polyline, triangle, strip, polygon, pixel, quad):
@@ -68,6 +68,8 @@ class TetMesh:
     sizes : (cell_size, point_size) or None
         For a mesh of tetrahedra only: :func:`vtkflow.kernels.cell_sizes` of its cells (in cell order),
         computed in the ordering pass.
+    index : MortonIndex or None
+        Where the tetrahedra of each Morton cell begin (from the ordering pass).
     """
 
     points: np.ndarray
@@ -75,6 +77,7 @@ class TetMesh:
     parent: np.ndarray
     centres: sp.csr_matrix
     sizes: tuple[np.ndarray, np.ndarray] | None = None
+    index: "MortonIndex | None" = None
 
     @property
     def n_points(self) -> int:
@@ -211,10 +214,10 @@ def decompose(points: np.ndarray, offsets: np.ndarray, connectivity: np.ndarray,
     # neighbours in memory, which is what point location and interpolation spend time on. Codes, a
     # counting sort and one gather (kernels.orient_and_order); orient_and_order_numpy below is its twin.
     if parent is None:  # tetrahedra only: tetrahedron t is cell order[t]; their sizes from the same pass
-        tet, order, cell_size, point_size = orient_and_order(all_points, tet, sizes=True)
-        return TetMesh(all_points, tet, order, centres.tocsr(), (cell_size, point_size))
-    tet, order = orient_and_order(all_points, tet)
-    return TetMesh(all_points, tet, np.asarray(parent[order], dtype=np.int64), centres.tocsr())
+        tet, order, cell_size, point_size, index = orient_and_order(all_points, tet, sizes=True, index=True)
+        return TetMesh(all_points, tet, order, centres.tocsr(), (cell_size, point_size), index)
+    tet, order, index = orient_and_order(all_points, tet, index=True)
+    return TetMesh(all_points, tet, np.asarray(parent[order], dtype=np.int64), centres.tocsr(), None, index)
 
 
 def orient_and_order_numpy(points: np.ndarray, tets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -290,6 +293,20 @@ def face_neighbours(tets: np.ndarray) -> np.ndarray:
 #: or 16 and fan-outs of 4 located random points as fast (measured, benchmarks/prep.py's mesh).
 TREE_LEAF = 8
 TREE_FANOUT = 8
+
+
+@dataclass
+class MortonIndex:
+    """Where the tetrahedra of each Morton cell begin, from the ordering's counting sort (kept, not
+    recomputed): a point's code over ``lo``, ``scale`` (21 bits per axis), shifted right by ``shift``, is
+    its cell ``q``, and ``start[q + 1]`` the first tetrahedron whose centroid's code falls in ``q`` or after
+    it (the tetrahedra are numbered in that order). A tetrahedron near any point, without a search: the
+    walk's start for points located without a hint."""
+
+    lo: np.ndarray
+    scale: np.ndarray
+    shift: int
+    start: np.ndarray
 
 
 @dataclass
