@@ -563,7 +563,7 @@ def orient_and_order(points: np.ndarray, tets: np.ndarray, sizes: bool = False,
     m = len(tets)
     vertex = np.int32 if len(points) < 2**31 else np.int64
     if m == 0:
-        empty = np.zeros((0, 4), np.int32 if len(points) < 2**31 else np.int64), np.zeros(0, np.int64)
+        empty = np.zeros((0, 4), vertex), np.zeros(0, np.int64)
         return (*empty, *((np.zeros(0), np.ones(len(points))) if sizes else ()), *((None,) if index else ()))
     codes, flip = np.empty(m, np.uint64), np.empty(m, np.bool_)
     lo, hi = bounds(points)
@@ -574,7 +574,8 @@ def orient_and_order(points: np.ndarray, tets: np.ndarray, sizes: bool = False,
     if sizes:
         _size_floor(cs, ps, smallest)
     bits = morton_bits(m)
-    # codes < 2**63: as signed integers they keep their order, and the sort shifts them itself (no key array)
+    # codes < 2**63: as signed integers they keep their order, and the sort shifts them itself (no key array);
+    # its group bounds are the Morton index (as shifted_order, with the bounds kept)
     order, start = _group_order(codes.view(np.int64), 63 - bits, (1 << bits) + 1)
     out = np.empty((m, 4), vertex)
     _gather_oriented(tets, order, flip, out)
