@@ -137,20 +137,18 @@ def test_locate_on_a_graded_l_shaped_mesh_matches_brute_force():
 def test_morton_index_bounds_each_cells_tetrahedra_and_location_without_it_agrees():
     """The decomposition's Morton index (the ordering sort's group bounds, kept): every tetrahedron ``t``
     lies in the run ``start[q + 1] <= t < start[q + 2]`` of its centroid's cell ``q``, the code computed
-    here with NumPy (``tetmesh._spread_bits``, the twin's bit spreading). Location without hints walks from
+    here with NumPy (``tetmesh.morton_codes``, the twin's). Location without hints walks from
     the index; without an index it searches the box tree: both find a containing tetrahedron (reference:
     the brute-force search), for points inside, on vertices and outside."""
     import dataclasses
 
-    from vtkflow.tetmesh import _spread_bits
+    from vtkflow.tetmesh import morton_codes
 
     mesh = Mesh(box_mesh((0, 0, 0), (2, 1, 1), (9, 5, 4), "hexahedron"))
     tm = mesh.tetmesh
     idx = tm.index
     centroids = tm.points[tm.tets].mean(axis=1)
-    q = np.clip((centroids - idx.lo) * idx.scale, 0.0, 2**21 - 1).astype(np.uint64)
-    code = _spread_bits(q[:, 0]) | (_spread_bits(q[:, 1]) << np.uint64(1)) | (_spread_bits(q[:, 2]) << np.uint64(2))
-    cell = (code >> np.uint64(idx.shift)).astype(np.int64)
+    cell = (morton_codes(centroids, idx.lo, idx.scale) >> np.uint64(idx.shift)).astype(np.int64)
     t = np.arange(len(tm.tets))
     assert np.all(idx.start[cell + 1] <= t) and np.all(t < idx.start[cell + 2])
     rng = np.random.default_rng(8)

@@ -25,7 +25,7 @@ import scipy.sparse as sp
 
 from .errors import InputError
 
-__all__ = ["TetMesh", "MortonIndex", "decompose", "orient_and_order_numpy", "morton_order", "split_wedges", "face_neighbours", "BoxTree", "box_tree", "tree_levels", "tree_pad"]
+__all__ = ["TetMesh", "MortonIndex", "decompose", "orient_and_order_numpy", "morton_order", "morton_codes", "split_wedges", "face_neighbours", "BoxTree", "box_tree", "tree_levels", "tree_pad"]
 
 TETRA, VOXEL, HEXAHEDRON, WEDGE, PYRAMID = 10, 11, 12, 13, 14
 #: Cells below three dimensions (vertex, poly-vertex, line, polyline, triangle, strip, polygon, pixel, quad):
@@ -259,10 +259,15 @@ def morton_order(xyz: np.ndarray, lo: np.ndarray | None = None, hi: np.ndarray |
         return np.zeros(0, np.int64)
     lo = xyz.min(axis=0) if lo is None else np.asarray(lo, float)
     hi = xyz.max(axis=0) if hi is None else np.asarray(hi, float)
-    scale = (2**21 - 1) / np.maximum(hi - lo, 1e-300)
-    q = np.clip((xyz - lo) * scale, 0.0, 2**21 - 1).astype(np.uint64)
-    code = _spread_bits(q[:, 0]) | (_spread_bits(q[:, 1]) << np.uint64(1)) | (_spread_bits(q[:, 2]) << np.uint64(2))
+    code = morton_codes(xyz, lo, (2**21 - 1) / np.maximum(hi - lo, 1e-300))
     return np.argsort(code >> np.uint64(63 - morton_bits(len(xyz))), kind="stable")
+
+
+def morton_codes(xyz: np.ndarray, lo: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """The 63-bit Morton codes ``(N,)`` of points ``(N, 3)`` over ``lo``, ``scale`` (21 bits per axis, x lowest,
+    clamped to the box): the NumPy twin of the kernels' ``_morton``."""
+    q = np.clip((np.asarray(xyz, float) - lo) * scale, 0.0, 2**21 - 1).astype(np.uint64)
+    return _spread_bits(q[:, 0]) | (_spread_bits(q[:, 1]) << np.uint64(1)) | (_spread_bits(q[:, 2]) << np.uint64(2))
 
 
 def face_neighbours(tets: np.ndarray) -> np.ndarray:
