@@ -127,6 +127,42 @@ def test_streamline_stops_at_stagnation_and_at_length(cube):
     assert lines.ends[0, 0] == Status.active
 
 
+def test_streamline_arc_length_matches_solve_ivp_in_a_linear_field(cube):
+    """A linear field is interpolated exactly, so a streamline's end point at arc length L differs from the
+    exact one only by RK4's error: against SciPy's solve_ivp (DOP853, rtol 1e-12) on the unit tangent, in
+    both directions. RK4 is of order 4 (Kutta 1901; Hairer, Nørsett & Wanner 1993, section II.1), and so is
+    the arc length, RK4 applied to ds/dt = |u| alongside the path: measured 1.2e-6 at a quarter cell
+    (tolerance 5e-6, about 4x) and a 15x smaller error at half that step (at least 8x asked: order >= 3)."""
+    from scipy.integrate import solve_ivp
+
+    def flow(p):
+        return np.stack([p[..., 0] - 0.5, -(p[..., 1] - 0.5), np.full(p.shape[:-1], 0.3)], axis=-1)
+
+    f = TimeField(cube)
+    u = flow(cube.points)
+    f.load(0.0, u, 1.0, u)
+    seeds = np.array([[0.4, 0.6, 0.3], [0.6, 0.45, 0.4], [0.55, 0.62, 0.5], [0.62, 0.4, 0.35]])
+    length = 0.25
+    exact = {}
+    for sign in (1.0, -1.0):
+        for k, s0 in enumerate(seeds):
+            sol = solve_ivp(lambda s, x: sign * flow(x) / np.linalg.norm(flow(x)), (0.0, length), s0,
+                            method="DOP853", rtol=1e-12, atol=1e-14)
+            exact[sign, k] = sol.y[:, -1]
+    worst = []
+    for step in (0.25, 0.125):
+        lines = trace_streamlines(f, 0.0, seeds, np.arange(len(seeds)), "both", step, length)
+        last = np.cumsum(lines.lengths) - 1
+        first = last - lines.lengths + 1
+        assert np.all(lines.ends == Status.active)  # every part ran its whole length
+        np.testing.assert_array_equal(lines.arc_length[last], length)
+        np.testing.assert_array_equal(lines.arc_length[first], -length)
+        worst.append(max(np.linalg.norm(lines.points[i[k]] - exact[sign, k])
+                         for sign, i in ((1.0, last), (-1.0, first)) for k in range(len(seeds))))
+    assert worst[0] < 5e-6
+    assert worst[1] < worst[0] / 8
+
+
 def test_largest_speed_is_that_of_the_blended_field_at_the_points(cube):
     """``TimeField.largest_speed`` (the streamline stall floor's scale) against its NumPy twin: the largest
     norm of ``(1 - a) u0 + a u1`` over the points, NaN rows passed over."""

@@ -13,7 +13,9 @@ threads (bitwise). The rules are those of the NumPy twin :func:`vtkflow.particle
 * a NaN velocity (or, for streamlines, a speed below the floor) stops the particle.
 
 Two modes share the kernel: time-accurate (velocity linear in time between the two loaded snapshots) and
-frozen (the unit tangent ``sign * u / |u|`` at one time, integrated in arc length, for streamlines).
+frozen (``sign * u`` at one time, for streamlines: the same steps in a pseudo-time, the particle's "time"
+its arc length, grown by the scheme's quadrature of the speed, and the last step's end moved along the
+tangent to the length limit; no square root and division per stage, as a unit tangent would need).
 At most ``max_steps`` accepted steps are taken per call, recorded into particle-major buffers, one row per
 particle (position, time, and the velocity itself, also in frozen mode); the Python wrapper calls again
 until every particle is done. The particles of a call are rows of the state arrays, advanced in place.
@@ -61,7 +63,8 @@ def _on_compiled(switch):
 @njit(cache=True, fastmath=FMA, nogil=True, inline="always")
 def _sample(x0, x1, x2, t, hint, mesh, field, sign, frozen, cubic, need_h=True):
     """Velocity at ``((x0, x1, x2), t)``: ``(tetrahedron or -1, local cell size, stop code, speed, u0, u1, u2)``,
-    the speed that of the velocity itself (in frozen mode ``u`` is its unit tangent). The cell size is
+    (in frozen mode ``u`` is ``sign`` times the velocity at the frozen time, and speeds at or below the floor
+    stall). The cell size is
     interpolated only when ``need_h`` (0.0 otherwise), and a snapshot of zero weight is not read.
     ``frozen`` and ``cubic`` are the mode switches (:data:`ON`, :data:`OFF`)."""
     geom, nbr, conn, boxes, levels = mesh
@@ -102,13 +105,12 @@ def _sample(x0, x1, x2, t, hint, mesh, field, sign, frozen, cubic, need_h=True):
     if not (np.isfinite(w0) and np.isfinite(w1) and np.isfinite(w2)):
         return cell, h, NAN, 0.0, 0.0, 0.0, 0.0
     speed = np.sqrt(w0 * w0 + w1 * w1 + w2 * w2)
-    if _on(frozen):
+    if _on(frozen):  # the velocity along the streamline's direction (not normalised: see _advance_one)
         if not speed > floor:
             return cell, h, STALLED, 0.0, 0.0, 0.0, 0.0
-        f = sign / speed
-        w0 *= f
-        w1 *= f
-        w2 *= f
+        w0 *= sign
+        w1 *= sign
+        w2 *= sign
     # the next tetrahedron along the path, into cache while this one's sample is used (on meshes larger than
     # the caches, the walk's loads are what the engine waits for; on smaller ones the hint only costs)
     if geom.shape[0] > PREFETCH_TETS:
@@ -210,24 +212,24 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
             return 0
     cap = D[i] if adaptive and D[i] > 0.0 else np.inf  # the adaptive scheme's suggested step
     recording = rec_x.shape[1] > 0  # without buffers, steps are taken but not recorded
-    # recorded velocities are the velocity itself; in frozen mode v is the unit tangent: scale it back
-    scale = 1.0
-    if _on(frozen):
-        scale = sign * _sample(x0, x1, x2, t, cell, mesh, field, sign, frozen, cubic)[3]
+    # recorded velocities are the velocity itself; in frozen mode v is sign times it
+    scale = sign if _on(frozen) else 1.0
     guard = 0
     while n < max_steps and S[i] == ACTIVE and t < t_end:
         guard += 1
         if guard > 64 * max_steps + 1000:
             break  # no progress: leave it to the caller's guard
-        if _on(frozen):  # v is the unit tangent: no square root and division on the path to the next stage
-            dt = step * h  # (the steady kernel ran 7 % faster; steps differ from step * h / |v| by round-off)
-        else:
-            speed = np.sqrt(v0 * v0 + v1 * v1 + v2 * v2)
-            dt = step * h / speed if speed > 0.0 else np.inf
+        speed = np.sqrt(v0 * v0 + v1 * v1 + v2 * v2)
+        dt = step * h / speed if speed > 0.0 else np.inf
         dt = min(dt, cap)
-        last = dt >= t_end - t
-        if last:
-            dt = t_end - t
+        if _on(frozen):  # t is the arc length: this step's is about dt * speed
+            last = dt * speed >= t_end - t
+            if last:
+                dt = (t_end - t) / speed
+        else:
+            last = dt >= t_end - t
+            if last:
+                dt = t_end - t
         # stages
         k[0, 0], k[0, 1], k[0, 2] = v0, v1, v2
         cells[0] = cell
@@ -236,6 +238,8 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
         # the latest stage in registers (p, cj): the next stage's position waits on it, not on a store and a
         # load of the stage work arrays (the steady kernel ran 6 % faster, the transient run 2 %; same results)
         p0, p1, p2, cj = v0, v1, v2, cell
+        arc = bb[0] * speed  # frozen mode: the step's arc length over dt, by the scheme's quadrature of |v|
+        vmax = speed  # the largest speed met along the step
         for j in range(1, ns):
             a0 = a1 = a2 = 0.0
             for m in range(j - 1):
@@ -245,8 +249,10 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
             a0 += aa[j, j - 1] * p0
             a1 += aa[j, j - 1] * p1
             a2 += aa[j, j - 1] * p2
-            cj, _, sj, _, p0, p1, p2 = _sample(x0 + dt * a0, x1 + dt * a1, x2 + dt * a2, t + cc[j] * dt, cj, mesh,
-                                               field, sign, frozen, cubic, False)
+            cj, _, sj, spj, p0, p1, p2 = _sample(x0 + dt * a0, x1 + dt * a1, x2 + dt * a2, t + cc[j] * dt, cj, mesh,
+                                                 field, sign, frozen, cubic, False)
+            arc += bb[j] * spj
+            vmax = max(vmax, spj)
             k[j, 0], k[j, 1], k[j, 2] = p0, p1, p2
             cells[j] = cj
             codes[j] = sj
@@ -255,7 +261,7 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
             n_in += 1
         inside = n_in == ns
         cn, hn, sn, spn, u0, u1, u2 = -1, 0.0, OUTSIDE, 0.0, 0.0, 0.0, 0.0
-        tn = t_end if last else t + dt
+        tn = t + dt * arc if _on(frozen) else (t_end if last else t + dt)
         y0, y1, y2 = x0, x1, x2
         if inside:
             a0 = a1 = a2 = 0.0
@@ -269,12 +275,16 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
             y0, y1, y2 = x0 + dt * a0, x1 + dt * a1, x2 + dt * a2
             cn, hn, sn, spn, u0, u1, u2 = _sample(y0, y1, y2, tn, cj, mesh, field, sign, frozen, cubic)
             inside = cn >= 0
-        vmax = 1.0  # frozen mode: every stage is a unit tangent, so no step grows (the test below is skipped)
-        if not (_on(frozen) and inside):
-            vmax2 = 0.0
-            for m in range(n_in):
-                vmax2 = max(vmax2, k[m, 0] ** 2 + k[m, 1] ** 2 + k[m, 2] ** 2)
-            vmax = np.sqrt(vmax2)
+            if _on(frozen) and (last or tn > t_end) and inside and sn == ACTIVE:
+                # the last step's arc length is t_end - t to first order (and a step sized below it may pass
+                # it): the end point is moved the rest along the tangent there (forward or back; an error of
+                # order rest^2 times the curvature) and sampled again
+                f = (t_end - tn) / spn
+                z0, z1, z2 = y0 + f * u0, y1 + f * u1, y2 + f * u2
+                cz, hz, sz, spz, w0, w1, w2 = _sample(z0, z1, z2, t_end, cn, mesh, field, sign, frozen, cubic)
+                if cz >= 0:
+                    y0, y1, y2, cn, hn, sn, spn, u0, u1, u2 = z0, z1, z2, cz, hz, sz, spz, w0, w1, w2
+                    tn = t_end
         if not inside:
             if dt * vmax <= min_step * h:
                 # to the boundary along the mean velocity of the stages that stayed inside
@@ -294,7 +304,7 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
                     dist = _ray_exit(x0, x1, x2, d0, d1, d2, cell, geom, nbr)
                     if dist > 0.0:
                         x0, x1, x2 = x0 + dist * d0, x1 + dist * d1, x2 + dist * d2
-                        t = min(t + dist / ms, t_end)
+                        t = min(t + (dist if _on(frozen) else dist / ms), t_end)
                         if recording:
                             _record(col, n, x0, x1, x2, t, v0 * scale, v1 * scale, v2 * scale, rec_x, rec_t, rec_v)
                         n += 1
@@ -333,8 +343,6 @@ def _advance_one(i, col, X, T, V, H, C, S, D, sign, t_end, step, max_steps, mesh
         t = tn
         h = hn
         cell = cn
-        if _on(frozen):
-            scale = sign * spn
         if recording:
             _record(col, n, x0, x1, x2, t, v0 * scale, v1 * scale, v2 * scale, rec_x, rec_t, rec_v)
         n += 1

@@ -11,8 +11,8 @@ A step whose stages leave the mesh is halved until it is shorter than :data:`MIN
 particle is placed on the boundary (the numba engine: exact ray crossing of a boundary face; the NumPy
 twin: bisection) and stops with status ``exited``.
 
-Streamlines use the same integrator on the frozen, normalised field at one time (the "time" is then the
-arc length), see :func:`trace_streamlines`.
+Streamlines use the same integrator on the field frozen at one time (the particle's "time" is then its arc
+length), see :func:`trace_streamlines` and :func:`advance_numpy`.
 """
 
 from __future__ import annotations
@@ -171,7 +171,7 @@ class TimeField:
 
     def kernel_args(self, time: Optional[float] = None, floor: float = 0.0) -> tuple:
         """The plain arrays the numba engine needs: ``(mesh tuple, field tuple)``; with ``time``, the
-        frozen unit-tangent field at that time (streamlines)."""
+        frozen field at that time (streamlines)."""
         loc = self.mesh.locator
         mesh = (loc.geom, loc.nbr, loc.conn, loc.tree.boxes, loc.tree.levels)
         frozen = time is not None
@@ -244,7 +244,8 @@ def time_slopes(times: np.ndarray, k: int, snapshot: Callable[[int], np.ndarray]
 
 
 class FrozenField:
-    """The unit tangent ``sign * u / |u|`` of the velocity at one time: streamlines in arc length.
+    """The velocity at one time along each streamline's direction, ``sign * u``: streamlines, each
+    particle's "time" its arc length (see :func:`advance_numpy`).
 
     Parameters
     ----------
@@ -274,21 +275,22 @@ class FrozenField:
         return self.field.outputs
 
     def velocity(self, x: np.ndarray) -> Sample:
-        """The velocity itself (not normalised) at seeds ``x``, as the engine samples it
+        """The velocity itself (without the sign) at seeds ``x``, as the engine samples it
         (:meth:`TimeField.release_sample`)."""
         return self.field.release_sample(x, np.full(len(x), self.time))
 
     def __call__(self, x: np.ndarray, s: np.ndarray, idx: np.ndarray) -> Sample:
         # the NumPy sampler: the twin engine's
-        return self.tangent(self.field(x, np.full(len(x), self.time)), idx)
+        return self.directed(self.field(x, np.full(len(x), self.time)), idx)
 
-    def tangent(self, got: Sample, idx: np.ndarray) -> Sample:
-        """The unit-tangent sample of particles ``idx`` from the velocity sampled at their points."""
+    def directed(self, got: Sample, idx: np.ndarray) -> Sample:
+        """The sample of particles ``idx`` along their direction (``sign`` times the velocity sampled at their
+        points), stalled where the speed is at or below the floor."""
         speed = np.linalg.norm(got.v, axis=1)
         slow = got.inside & (got.stop == 0) & ~(speed > self.floor)
         stop = np.where(slow, int(Status.stalled), got.stop)
-        unit = np.where(speed[:, None] > 0, got.v / np.where(speed > 0, speed, 1.0)[:, None], 0.0)
-        return Sample(unit * self.sign[idx, None], got.h, got.inside, stop, got.cell)
+        v = np.where(slow[:, None], 0.0, got.v * self.sign[idx, None])
+        return Sample(v, got.h, got.inside, stop, got.cell)
 
 
 @dataclass
@@ -445,7 +447,14 @@ def advance_numpy(
     Differential Equations I*, Springer, table 1.2 of section II.1). Each particle's step is
     ``min(step * h / |u|, t_end - t)``; it is redone shorter when the speed met along it exceeds
     ``MAX_GROWTH`` times the one it was sized for, and halved when a stage leaves the mesh.
+
+    On a :class:`FrozenField` (streamlines) the particle's "time" is its arc length: the steps are the same,
+    ``step * h / |u|`` in a pseudo-time, and the arc length grows by the scheme's own quadrature of the
+    speed, ``dt (|k1| + 2 |k2| + 2 |k3| + |k4|) / 6`` (RK4 applied to ``ds/dt = |u|`` alongside the path: as
+    accurate as the path). The last step is sized to reach ``t_end`` to first order, and its end point is
+    moved the rest along the tangent there (an error of the rest squared times the curvature).
     """
+    arc = isinstance(field, FrozenField)
     active = np.flatnonzero((state.status == Status.active) & (state.t < t_end))
     cap = np.full(state.t.size, np.inf)  # per-particle limit on dt after a rejected step
     for _ in range(max_iterations):
@@ -456,19 +465,30 @@ def advance_numpy(
         remaining = t_end - t
         with np.errstate(divide="ignore", invalid="ignore"):
             dt = np.minimum(np.where(speed > 0, step * h / speed, np.inf), cap[active])
-        last = dt >= remaining
-        dt = np.where(last, remaining, dt)
+        if arc:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                last = dt * speed >= remaining
+                dt = np.where(last, remaining / speed, dt)
+        else:
+            last = dt >= remaining
+            dt = np.where(last, remaining, dt)
 
         s2 = field(x + 0.5 * dt[:, None] * k1, t + 0.5 * dt, active)
         s3 = field(x + 0.5 * dt[:, None] * s2.v, t + 0.5 * dt, active)
         s4 = field(x + dt[:, None] * s3.v, t + dt, active)
         xn = x + (dt / 6.0)[:, None] * (k1 + 2.0 * s2.v + 2.0 * s3.v + s4.v)
-        tn = np.where(last, t_end, t + dt)
+        speeds = [speed] + [np.linalg.norm(sk.v, axis=1) for sk in (s2, s3, s4)]
+        if arc:
+            tn = t + dt * (speeds[0] + 2.0 * speeds[1] + 2.0 * speeds[2] + speeds[3]) / 6.0
+        else:
+            tn = np.where(last, t_end, t + dt)
         sn = field(xn, tn, active)
+        if arc:
+            sn, xn, tn = _to_length(field, active, last, sn, xn, tn, t_end)
 
         inside = s2.inside & s3.inside & s4.inside & sn.inside
         # the speed met along the step; a step that outran the bound (the flow sped up) is redone
-        vmax = np.max([speed] + [np.linalg.norm(sk.v, axis=1) for sk in (s2, s3, s4)], axis=0)
+        vmax = np.max(speeds, axis=0)
         too_long = inside & (dt * vmax > MAX_GROWTH * step * h)
         stage_stop = np.maximum.reduce([s2.stop, s3.stop, s4.stop]) * inside
         ok = inside & ~too_long & (stage_stop == 0)
@@ -496,20 +516,44 @@ def advance_numpy(
             w = [(1.0, np.ones(len(active), bool), k1), (2.0, s2.inside, s2.v), (2.0, s3.inside, s3.v), (1.0, s4.inside, s4.v)]
             total = sum(wi * ins for wi, ins, _ in w)
             mean = sum((wi * ins)[:, None] * vi for wi, ins, vi in w) / total[:, None]
-            _exit(state, active[tiny], mean[tiny], t_end, field, record)
+            _exit(state, active[tiny], mean[tiny], t_end, field, record, arc)
 
         active = active[(state.status[active] == Status.active) & (state.t[active] < t_end)]
     raise RuntimeError(f"particle advection did not reach t = {t_end} in {max_iterations} iterations")
 
 
+def _to_length(field: Sampler, idx: np.ndarray, last: np.ndarray, sn: Sample, xn: np.ndarray, tn: np.ndarray,
+               t_end: float) -> tuple[Sample, np.ndarray, np.ndarray]:
+    """Arc-length mode: the end points of last steps (``last``, or past ``t_end``; inside and active) moved the
+    rest of the way to arc length ``t_end`` along the tangent there, forward or back, and sampled again; where
+    that point is outside, the step's end stays (short of ``t_end``: more steps follow)."""
+    move = (last | (tn > t_end)) & sn.inside & (sn.stop == 0)
+    if not move.any():
+        return sn, xn, tn
+    speed = np.linalg.norm(sn.v, axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f = np.where(move, (t_end - tn) / speed, 0.0)
+    z = xn + f[:, None] * sn.v
+    sz = field(z, np.full(len(z), t_end), idx)
+    take = move & sz.inside
+
+    def pick(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+        return np.where(take.reshape((-1,) + (1,) * (np.ndim(a) - 1)), a, b)
+
+    merged = Sample(*(None if a is None else pick(a, b) for a, b in zip(sz, sn)))
+    return merged, pick(z, xn), np.where(take, t_end, tn)
+
+
 def _exit(
-    state: State, idx: np.ndarray, mean: np.ndarray, t_end: float, field: Sampler, record: Optional[Recorder]
+    state: State, idx: np.ndarray, mean: np.ndarray, t_end: float, field: Sampler, record: Optional[Recorder],
+    arc: bool = False,
 ) -> None:
     """Move particles ``idx`` to where they cross the boundary and mark them exited.
 
     The search runs from the particle along ``mean``, its mean velocity over the stages of the last tried
     step that stayed inside (or the velocity at the particle where that is zero), one local cell size
-    ahead, by bisection; the exit time is the distance over that speed, at most ``t_end``.
+    ahead, by bisection; the exit time is the distance over that speed, at most ``t_end`` (``arc``: the
+    "time" is the arc length, and grows by the distance).
     """
     x, t, h = state.x[idx], state.t[idx], state.h[idx]
     v = np.where(np.linalg.norm(mean, axis=1)[:, None] > 0, mean, state.v[idx])
@@ -526,7 +570,7 @@ def _exit(
     dist = np.where(end_out, lo * reach, 0.0)
     xe = x + dist[:, None] * direction
     with np.errstate(divide="ignore", invalid="ignore"):
-        te = np.minimum(t + np.where(speed > 0, dist / speed, 0.0), t_end)
+        te = np.minimum(t + (dist if arc else np.where(speed > 0, dist / speed, 0.0)), t_end)
     got = field(xe, te, idx)
     state.x[idx], state.t[idx] = xe, te
     state.v[idx] = np.where(got.inside[:, None], got.v, state.v[idx])
@@ -561,7 +605,7 @@ def trace_streamlines(
     integrator: str = "rk4",
     tolerance: Optional[float] = None,
 ) -> StreamlineSet:
-    """Streamlines of the velocity frozen at ``time`` from ``seeds``, integrated in arc length.
+    """Streamlines of the velocity frozen at ``time`` from ``seeds``, up to an arc length.
 
     Parameters
     ----------
@@ -593,10 +637,10 @@ def trace_streamlines(
 
     # each engine call's records as the engine left them (see advance(runs=True)): per particle, a run in
     # arc order; the first "call" is the seed vertex, once per seed (with the forward part when both), the
-    # velocity itself (not the unit tangent the engine integrates)
+    # velocity itself (not sign times it, as the engine integrates it)
     calls: list[tuple[np.ndarray, ...]] = []
     state = State.empty(len(sign))
-    place(state, rows, start, np.zeros(len(sign)), frozen, frozen.tangent(got, rows))
+    place(state, rows, start, np.zeros(len(sign)), frozen, frozen.directed(got, rows))
     first = rows[sign > 0] if direction == "both" else rows
     calls.append((first, np.ones(len(first), np.int64), start[first].reshape(-1, 1, 3), np.zeros((len(first), 1)),
                   got.v[first].reshape(-1, 1, 3)))
