@@ -127,7 +127,7 @@ def test_streamline_stops_at_stagnation_and_at_length(cube):
     assert lines.ends[0, 0] == Status.active
 
 
-def test_streamline_arc_length_matches_solve_ivp_in_a_linear_field(cube):
+def test_streamline_arc_length_matches_solve_ivp_in_a_linear_field(cube, accuracy):
     """A linear field is interpolated exactly, so a streamline's end point at arc length L differs from the
     exact one only by RK4's error: against SciPy's solve_ivp (DOP853, rtol 1e-12) on the unit tangent, in
     both directions. RK4 is of order 4 (Kutta 1901; Hairer, Nørsett & Wanner 1993, section II.1), and so is
@@ -159,6 +159,9 @@ def test_streamline_arc_length_matches_solve_ivp_in_a_linear_field(cube):
         np.testing.assert_array_equal(lines.arc_length[first], -length)
         worst.append(max(np.linalg.norm(lines.points[i[k]] - exact[sign, k])
                          for sign, i in ((1.0, last), (-1.0, first)) for k in range(len(seeds))))
+    accuracy("streamline at arc length L vs solve_ivp, linear field", worst[0], 5e-6, "step 0.25")
+    accuracy("same, error ratio step 0.25 -> 0.125", worst[1] / worst[0], 1 / 8,
+             f"order {np.log2(worst[0] / worst[1]):.2f}")
     assert worst[0] < 5e-6
     assert worst[1] < worst[0] / 8
 
