@@ -61,6 +61,15 @@ def _on_compiled(switch):
 
 
 @njit(cache=True, fastmath=FMA, nogil=True, inline="always")
+def _blend(values, n0, n1, n2, n3, b0, b1, b2, b3, col):
+    """The barycentric blend of columns ``col .. col + 2`` of the vertex rows ``n0 .. n3``, summed in pairs:
+    two short dependency chains instead of one long one (2-6 % faster, measured)."""
+    return ((b0 * values[n0, col] + b1 * values[n1, col]) + (b2 * values[n2, col] + b3 * values[n3, col]),
+            (b0 * values[n0, col + 1] + b1 * values[n1, col + 1]) + (b2 * values[n2, col + 1] + b3 * values[n3, col + 1]),
+            (b0 * values[n0, col + 2] + b1 * values[n1, col + 2]) + (b2 * values[n2, col + 2] + b3 * values[n3, col + 2]))
+
+
+@njit(cache=True, fastmath=FMA, nogil=True, inline="always")
 def _sample(x0, x1, x2, t, hint, mesh, field, sign, frozen, cubic, need_h=True):
     """Velocity at ``((x0, x1, x2), t)``: ``(tetrahedron or -1, local cell size, stop code, speed, u0, u1, u2)``.
     In frozen mode ``u`` is ``sign`` times the velocity at the frozen time, and a speed at or below the floor
@@ -93,19 +102,14 @@ def _sample(x0, x1, x2, t, hint, mesh, field, sign, frozen, cubic, need_h=True):
     if wc == 0.0 and wd == 0.0 and (wa == 1.0 or wb == 1.0):
         # at a snapshot (streamlines at a saved time, as a rule): its columns alone, no weight on the chain
         # from the sample to the next stage (the steady kernel ran 1-6 % faster; the same results)
-        col = 0 if wa == 1.0 else 3
-        w0 = (b0 * values[n0, col] + b1 * values[n1, col]) + (b2 * values[n2, col] + b3 * values[n3, col])
-        w1 = (b0 * values[n0, col + 1] + b1 * values[n1, col + 1]) + (b2 * values[n2, col + 1] + b3 * values[n3, col + 1])
-        w2 = (b0 * values[n0, col + 2] + b1 * values[n1, col + 2]) + (b2 * values[n2, col + 2] + b3 * values[n3, col + 2])
+        w0, w1, w2 = _blend(values, n0, n1, n2, n3, b0, b1, b2, b3, 0 if wa == 1.0 else 3)
         wa = wb = 0.0
     for col, wgt in ((0, wa), (3, wb), (6, wc), (9, wd)):
         if wgt != 0.0:  # a snapshot (or slope) of zero weight is not read, not even through 0 * NaN
-            # summed in pairs: two short dependency chains instead of one long one (2-6 % faster, measured)
-            w0 += wgt * ((b0 * values[n0, col] + b1 * values[n1, col]) + (b2 * values[n2, col] + b3 * values[n3, col]))
-            w1 += wgt * ((b0 * values[n0, col + 1] + b1 * values[n1, col + 1])
-                         + (b2 * values[n2, col + 1] + b3 * values[n3, col + 1]))
-            w2 += wgt * ((b0 * values[n0, col + 2] + b1 * values[n1, col + 2])
-                         + (b2 * values[n2, col + 2] + b3 * values[n3, col + 2]))
+            s0, s1, s2 = _blend(values, n0, n1, n2, n3, b0, b1, b2, b3, col)
+            w0 += wgt * s0
+            w1 += wgt * s1
+            w2 += wgt * s2
     h = 0.0
     if need_h:
         hc = values.shape[1] - 1  # the cell size is the last column

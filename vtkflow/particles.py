@@ -530,18 +530,18 @@ def _to_length(field: Sampler, idx: np.ndarray, last: np.ndarray, sn: Sample, xn
     move = (last | (tn > t_end)) & sn.inside & (sn.stop == 0)
     if not move.any():
         return sn, xn, tn
-    speed = np.linalg.norm(sn.v, axis=1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        f = np.where(move, (t_end - tn) / speed, 0.0)
-    z = xn + f[:, None] * sn.v
-    sz = field(z, np.full(len(z), t_end), idx)
-    take = move & sz.inside
-
-    def pick(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-        return np.where(take.reshape((-1,) + (1,) * (np.ndim(a) - 1)), a, b)
-
-    merged = Sample(*(None if a is None else pick(a, b) for a, b in zip(sz, sn)))
-    return merged, pick(z, xn), np.where(take, t_end, tn)
+    m = np.flatnonzero(move)  # only these are sampled again
+    v = sn.v[m]
+    z = xn[m] + ((t_end - tn[m]) / np.linalg.norm(v, axis=1))[:, None] * v
+    sz = field(z, np.full(len(m), t_end), idx[m])
+    took = m[sz.inside]
+    merged = Sample(*(None if b is None else b.copy() for b in sn))
+    for a, b in zip(sz, merged):
+        if b is not None:
+            b[took] = a[sz.inside]
+    xn, tn = xn.copy(), tn.copy()
+    xn[took], tn[took] = z[sz.inside], t_end
+    return merged, xn, tn
 
 
 def _exit(
